@@ -1,0 +1,123 @@
+"""One joint's controller: the chosen law, then the safety filter. Nothing else sends torque.
+
+Used tick by tick by the offline simulator and the ROS controller node alike.
+"""
+from __future__ import annotations
+
+from dataclasses import fields
+
+from .laws import Gains, LawRunner, NominalModel, check_gains, make_law
+from .safety import Limits, SafetyFilter
+from .sample import JointSample
+
+
+def blend_gains(old: Gains, new: Gains, w: float, motor_inertia: float) -> Gains:
+    """Gains a fraction ``w`` (0..1) of the way from ``old`` to ``new``.
+
+    An unset motor inertia target (0) blends as the nominal motor inertia, which
+    is the same law, so shaping fades in without a jump.
+    """
+    def value(name, g):
+        v = getattr(g, name)
+        return motor_inertia if name == "motor_inertia_target" and v == 0.0 else v
+    mixed = {f.name: (1.0 - w) * value(f.name, old) + w * value(f.name, new) for f in fields(Gains)}
+    if new.virtual_mass == 0.0 or old.virtual_mass == 0.0:  # the damper's order cannot blend
+        mixed["virtual_mass"] = new.virtual_mass
+    return Gains(**mixed)
+
+
+class JointController:
+    """Law + safety filter for one joint, with bumpless law switching and gain ramps."""
+
+    def __init__(self, law: str, model: NominalModel, gains: Gains, limits: Limits,
+                 safe_mode: str = "zero_torque"):
+        check_gains(law, gains)
+        self.law_name, self.model, self.gains = law, model, gains
+        self.safety = SafetyFilter(limits, safe_mode)
+        self._runner: LawRunner | None = None   # built on the first good reading
+        self._ramp = None                       # (from gains, start time s, duration s)
+        self.last_reading_time: float | None = None
+
+    @property
+    def fault(self) -> str | None:
+        return self.safety.fault
+
+    def arm(self, t: float) -> None:
+        """Start the watchdog clock at ``t`` (s), e.g. on activation."""
+        self.last_reading_time = t
+
+    def step(self, s: JointSample, ref, t: float, dt: float) -> float:
+        """Motor torque command (N m) for reading ``s``, reference ``ref`` = (q_d, q_d', q_d''), at ``t``."""
+        self.last_reading_time = t
+        tau = float("nan")
+        if self.safety.fault is None and s.is_finite():
+            self._apply_ramp(s, ref, t)
+            if self._runner is None:
+                self._runner = LawRunner(make_law(self.law_name, self.model, self.gains), s, ref,
+                                         previous_torque=self.safety.last_torque)
+            tau = self._runner.step(s, ref, dt)
+        elif self.safety.fault is not None:
+            tau = 0.0  # ignored: in fault the filter commands the safe torque
+        return self.safety.filter(s, tau, dt)
+
+    def watchdog(self, t: float, timeout: float, dt: float) -> float | None:
+        """Safe command (N m) when no reading came for ``timeout`` s, else None (keep ticking on readings)."""
+        if self.last_reading_time is None or t - self.last_reading_time <= timeout:
+            return None
+        self.safety.trip(f"watchdog: no joint state for {t - self.last_reading_time:.3f} s")
+        return self.safety.ramp_down(dt)
+
+    def stop(self, reason: str = "stop requested") -> None:
+        """Enter safe mode now."""
+        self.safety.trip(reason)
+
+    def reset(self) -> str | None:
+        """Leave safe mode if the last reading is within limits (returns the reason if not).
+
+        The law restarts from the measured state, bumpless from the last command.
+        """
+        reason = self.safety.reset()
+        if reason is None:
+            self._runner = None
+        return reason
+
+    def switch_law(self, law: str, gains: Gains | None = None) -> None:
+        """Change law (and gains) at once, bumpless: states restart to reproduce the last command."""
+        gains = self.gains if gains is None else gains
+        check_gains(law, gains)
+        self.law_name, self.gains, self._ramp, self._runner = law, gains, None, None
+
+    def set_gains(self, gains: Gains, t: float, ramp_time: float) -> None:
+        """Move to ``gains`` linearly over ``ramp_time`` s from ``t``."""
+        check_gains(self.law_name, gains)
+        start = self._runner.law.gains if self._runner is not None else self.gains
+        self.gains = gains
+        self._ramp = (start, t, ramp_time) if ramp_time > 0.0 else None
+        if self._runner is not None and self._ramp is None:
+            self._rebuild(gains)
+
+    def set_limits(self, limits: Limits) -> None:
+        """New safety limits from the next tick (a lowered torque limit applies at once)."""
+        self.safety.limits = limits
+
+    def _apply_ramp(self, s, ref, t):
+        if self._ramp is None or self._runner is None:
+            return
+        start, t0, duration = self._ramp
+        w = min(max((t - t0) / duration, 0.0), 1.0)
+        self._rebuild(blend_gains(start, self.gains, w, self.model.motor_inertia))
+        if w >= 1.0:
+            self._ramp = None
+
+    def _rebuild(self, gains: Gains):
+        """Swap the running law's gains, keeping its states when their number is unchanged."""
+        law = make_law(self.law_name, self.model, gains)
+        if law.n_states != self._runner.law.n_states:
+            self._runner = None  # re-initialised bumpless on this tick
+            return
+        self._runner.set_law(law)
+
+
+def bank(setup) -> list:
+    """One JointController per joint of a :class:`config.ControllerSetup`."""
+    return [JointController(setup.law, j.model, j.gains, j.limits, setup.safe_mode) for j in setup.joints]

@@ -1,0 +1,283 @@
+"""Control laws for one series-elastic joint: motor torque before the safety filter.
+
+Every law is written in continuous time as an output map and, for laws with
+internal states ``z``, a state rate::
+
+    tau_m = law.output(sample, ref, z)        z' = law.state_rate(sample, ref, z)
+
+``LawRunner`` discretises the states exactly (zero-order hold on the measured
+link position) and is what the controller ticks. ``analysis`` linearises the
+same two functions, so the poles it reports are those of this code.
+
+Laws (see DEVELOPERS.md for the derivations):
+
+``zero``
+    tau_m = 0.
+``motor_pd``
+    Collocated PD with constant gravity compensation (Tomei 1991):
+    theta_d = q_d + g(q_d)/k,  tau_m = K (theta_d - theta) - D (theta' - theta_d') + g(q_d).
+``link_damping``, ``decoupled_damper``, ``decoupled_impedance``
+    Structure-preserving transformation: pick a link-side input u1, define
+    eta = theta - u1/k and command tau_m = u2 + u1 + (B/k) u1''. The closed loop
+    keeps the joint's shape, M q'' = k (eta - q) + u1 - g(q), B eta'' = k (q - eta) + u2,
+    with u2 = g(q_d) - K (eta - eta_d) - D (eta' - eta_d'), eta_d = q_d + g(q_d)/k.
+    Derivatives of u1 use the model-based link acceleration and jerk
+    q''_m = (k (theta - q) - g(q))/M,  q'''_m = (k (theta' - q') - g'(q) q')/M.
+
+    * link_damping: u1 = -D_l q' (needs the link jerk: the reference design).
+    * decoupled_damper: the damper sits behind a virtual spring k_v,
+      m_v x'' + D_v x' = k_v (q - x), u1 = -k_v (q - x) (m_v = 0: first order).
+      Only the link acceleration enters the torque.
+    * decoupled_impedance: u1 = -K_l (q - q_d) - k_v (q - x), the damper as above.
+
+    Motor inertia shaping (``motor_inertia_target`` B_d > 0) replaces u2 by
+    (B/B_d) u2 + (1 - B/B_d) k (eta - q), so that B_d eta'' = k (q - eta) + u2.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.linalg import expm
+
+from .sample import JointSample
+
+LAW_NAMES = ("zero", "motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
+
+
+def _spec(unit: str, check: str, doc: str, default):
+    return field(default=default, metadata={"unit": unit, "check": check, "doc": doc})
+
+
+@dataclass(frozen=True)
+class NominalModel:
+    """The controller's own model of the joint (need not equal the plant)."""
+
+    link_inertia: float = _spec("kg m^2", "positive", "nominal link inertia M", 1.0)
+    motor_inertia: float = _spec("kg m^2", "positive", "nominal motor inertia B (link side)", 1.0)
+    spring_stiffness: float = _spec("N m/rad", "positive", "nominal spring stiffness k", 100.0)
+    gravity_torque: float = _spec("N m", "nonnegative", "nominal pendulum load m g0 l", 0.0)
+    gravity_offset: float = _spec("rad", "finite", "nominal pendulum offset q_off", 0.0)
+
+    def gravity(self, q: float) -> float:
+        """g(q) (N m)."""
+        return self.gravity_torque * math.sin(q + self.gravity_offset)
+
+    def gravity_slope(self, q: float) -> float:
+        """dg/dq (N m/rad)."""
+        return self.gravity_torque * math.cos(q + self.gravity_offset)
+
+
+@dataclass(frozen=True)
+class Gains:
+    """Gains of all laws; each law reads the ones it needs (SI units)."""
+
+    motor_stiffness: float = _spec("N m/rad", "nonnegative", "K: motor (motor_pd) or eta position gain", 0.0)
+    motor_damping: float = _spec("N m s/rad", "nonnegative", "D: motor (motor_pd) or eta damping gain", 0.0)
+    link_damping: float = _spec("N m s/rad", "nonnegative", "D_l (link_damping) or D_v (decoupled laws)", 0.0)
+    link_stiffness: float = _spec("N m/rad", "nonnegative", "K_l: link stiffness of decoupled_impedance", 0.0)
+    decoupling_stiffness: float = _spec("N m/rad", "positive", "k_v: virtual spring in front of the damper", 100.0)
+    virtual_mass: float = _spec("kg m^2", "nonnegative", "m_v: virtual damper mass (0: first-order damper)", 0.0)
+    motor_inertia_target: float = _spec("kg m^2", "nonnegative", "B_d: shaped motor inertia (0: no shaping)", 0.0)
+
+
+def _eta_regulation(model: NominalModel, gains: Gains, ref, eta: float, deta: float) -> float:
+    """u2 of the transformed laws: PD on eta around eta_d = q_d + g(q_d)/k, gravity feed-forward."""
+    q_d, dq_d, _ = ref
+    k = model.spring_stiffness
+    g_d = model.gravity(q_d)
+    eta_d = q_d + g_d / k
+    deta_d = dq_d * (1.0 + model.gravity_slope(q_d) / k)
+    return g_d - gains.motor_stiffness * (eta - eta_d) - gains.motor_damping * (deta - deta_d)
+
+
+class Law:
+    """Base of all laws: no internal state, zero torque."""
+
+    name = "zero"
+    n_states = 0
+
+    def __init__(self, model: NominalModel, gains: Gains):
+        self.model = model
+        self.gains = gains
+
+    def output(self, s: JointSample, ref, z) -> float:
+        return 0.0
+
+    def state_rate(self, s: JointSample, ref, z) -> tuple:
+        return ()
+
+    def state_matrices(self):
+        """(A, b) of the linear state equation z' = A z + b q, or None without states."""
+        return None
+
+    def initial_state(self, s: JointSample) -> tuple:
+        """States at rest on the measured link position."""
+        return ()
+
+
+class MotorPD(Law):
+    name = "motor_pd"
+
+    def output(self, s, ref, z):
+        m, g = self.model, self.gains
+        q_d, dq_d, _ = ref
+        g_d = m.gravity(q_d)
+        theta_d = q_d + g_d / m.spring_stiffness
+        dtheta_d = dq_d * (1.0 + m.gravity_slope(q_d) / m.spring_stiffness)
+        return g.motor_stiffness * (theta_d - s.theta) - g.motor_damping * (s.dtheta - dtheta_d) + g_d
+
+
+class _Transformed(Law):
+    """Structure-preserving transformation; subclasses give u1 and its two derivatives."""
+
+    def link_input(self, s: JointSample, ref, z, ddq: float, dddq: float):
+        """(u1, u1', u1'') given the model-based link acceleration and jerk."""
+        raise NotImplementedError
+
+    def output(self, s, ref, z):
+        m = self.model
+        k, M, B = m.spring_stiffness, m.link_inertia, m.motor_inertia
+        ddq = (k * (s.theta - s.q) - m.gravity(s.q)) / M
+        dddq = (k * (s.dtheta - s.dq) - m.gravity_slope(s.q) * s.dq) / M
+        u1, du1, ddu1 = self.link_input(s, ref, z, ddq, dddq)
+        eta, deta = s.theta - u1 / k, s.dtheta - du1 / k
+        u2 = _eta_regulation(m, self.gains, ref, eta, deta)
+        b_d = self.gains.motor_inertia_target
+        if b_d > 0.0:
+            u2 = (B / b_d) * u2 + (1.0 - B / b_d) * k * (eta - s.q)
+        return u2 + u1 + (B / k) * ddu1
+
+
+class LinkDamping(_Transformed):
+    name = "link_damping"
+
+    def link_input(self, s, ref, z, ddq, dddq):
+        d = self.gains.link_damping
+        return -d * s.dq, -d * ddq, -d * dddq
+
+
+class DecoupledDamper(_Transformed):
+    """Damper D_v behind a virtual spring k_v; states z = (x,) or (x, x') with a virtual mass."""
+
+    name = "decoupled_damper"
+
+    @property
+    def n_states(self):
+        return 2 if self.gains.virtual_mass > 0.0 else 1
+
+    def _damper(self, s, z):
+        """(x', x'') of the virtual damper."""
+        g = self.gains
+        k_v, d_v, m_v = g.decoupling_stiffness, g.link_damping, g.virtual_mass
+        if m_v > 0.0:
+            x, dx = z
+            return dx, (k_v * (s.q - x) - d_v * dx) / m_v
+        dx = k_v * (s.q - z[0]) / d_v
+        return dx, k_v * (s.dq - dx) / d_v
+
+    def link_input(self, s, ref, z, ddq, dddq):
+        k_v = self.gains.decoupling_stiffness
+        dx, ddx = self._damper(s, z)
+        return -k_v * (s.q - z[0]), -k_v * (s.dq - dx), -k_v * (ddq - ddx)
+
+    def state_rate(self, s, ref, z):
+        dx, ddx = self._damper(s, z)
+        return (dx, ddx) if self.n_states == 2 else (dx,)
+
+    def state_matrices(self):
+        g = self.gains
+        k_v, d_v, m_v = g.decoupling_stiffness, g.link_damping, g.virtual_mass
+        if m_v > 0.0:
+            return np.array([[0.0, 1.0], [-k_v / m_v, -d_v / m_v]]), np.array([0.0, k_v / m_v])
+        return np.array([[-k_v / d_v]]), np.array([k_v / d_v])
+
+    def initial_state(self, s):
+        return (s.q, s.dq) if self.n_states == 2 else (s.q,)
+
+
+class DecoupledImpedance(DecoupledDamper):
+    """Link stiffness K_l around q_d plus the decoupled damper."""
+
+    name = "decoupled_impedance"
+
+    def link_input(self, s, ref, z, ddq, dddq):
+        q_d, dq_d, ddq_d = ref
+        k_l = self.gains.link_stiffness
+        u1, du1, ddu1 = super().link_input(s, ref, z, ddq, dddq)
+        return u1 - k_l * (s.q - q_d), du1 - k_l * (s.dq - dq_d), ddu1 - k_l * (ddq - ddq_d)
+
+
+_LAWS = {cls.name: cls for cls in (Law, MotorPD, LinkDamping, DecoupledDamper, DecoupledImpedance)}
+
+
+def check_gains(name: str, gains: Gains) -> None:
+    """Raise ValueError naming the gain when ``gains`` cannot run law ``name``."""
+    if name not in _LAWS:
+        raise ValueError(f"law: unknown law {name!r}; choose one of {', '.join(LAW_NAMES)}")
+    if name in ("decoupled_damper", "decoupled_impedance") and gains.link_damping <= 0.0:
+        raise ValueError(f"link_damping: {name} needs a positive damper (got {gains.link_damping})")
+
+
+def make_law(name: str, model: NominalModel, gains: Gains) -> Law:
+    """Build the law called ``name`` (one of LAW_NAMES)."""
+    check_gains(name, gains)
+    return _LAWS[name](model, gains)
+
+
+class LawRunner:
+    """Runs one law at a fixed or varying tick: output from the current states, then advance them.
+
+    States advance by the exact zero-order-hold solution of z' = A z + b q over
+    the tick (the measured link position held), so a stiff virtual spring stays
+    stable at any tick rate.
+    """
+
+    def __init__(self, law: Law, sample: JointSample, ref=None, previous_torque: float | None = None):
+        self.law = law
+        self.z = law.initial_state(sample)
+        self._discrete = {}
+        if previous_torque is not None and law.n_states:
+            self.z = self._bumpless_state(sample, ref, previous_torque)
+
+    def _bumpless_state(self, s, ref, tau):
+        """States that reproduce ``tau`` now: the torque is affine in the first state."""
+        z0 = list(self.z)
+        t0 = self.law.output(s, ref, tuple(z0))
+        z1 = list(z0)
+        z1[0] += 1e-3
+        slope = (self.law.output(s, ref, tuple(z1)) - t0) / 1e-3
+        if not math.isfinite(slope) or abs(slope) < 1e-9:
+            return tuple(z0)
+        z0[0] += (tau - t0) / slope
+        return tuple(z0)
+
+    def set_law(self, law: Law) -> None:
+        """Same law with new gains; states are kept (same number of states)."""
+        self.law, self._discrete = law, {}
+
+    def step(self, s: JointSample, ref, dt: float) -> float:
+        """Torque for this tick (N m); advances the law's states by ``dt`` seconds."""
+        tau = self.law.output(s, ref, self.z)
+        if self.law.n_states:
+            ad, bd = self._zoh(dt)
+            z = self.z
+            self.z = tuple(sum(ad[i][j] * z[j] for j in range(len(z))) + bd[i] * s.q
+                           for i in range(len(z)))
+        return tau
+
+    def _zoh(self, dt: float):
+        """Discrete (Ad, bd) for tick ``dt``, cached per dt (gains are fixed per law instance)."""
+        key = max(1, round(dt * 1e6))  # tick quantised to 1 us for the cache
+        if key not in self._discrete:
+            dt = key * 1e-6
+            a, b = self.law.state_matrices()
+            n = a.shape[0]
+            aug = np.zeros((n + 1, n + 1))
+            aug[:n, :n], aug[:n, n] = a * dt, b * dt
+            e = expm(aug)
+            if len(self._discrete) > 64:
+                self._discrete.clear()
+            self._discrete[key] = (e[:n, :n].tolist(), e[:n, n].tolist())
+        return self._discrete[key]

@@ -1,0 +1,1 @@
+"""ROS 2 nodes: thin rclpy adapters around the core."""

@@ -1,0 +1,87 @@
+"""Link-side references: desired position with its first two time derivatives.
+
+Each reference is a small immutable object; ``sample(t)`` returns
+``(q_d, q_d', q_d'')`` in rad, rad/s, rad/s^2.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class Constant:
+    """Constant set point (rad)."""
+
+    position: float
+
+    def sample(self, t: float):
+        return self.position, 0.0, 0.0
+
+
+@dataclass(frozen=True)
+class Step:
+    """Step from ``start`` to ``end`` (rad) at time ``at`` (s); derivatives are zero."""
+
+    start: float
+    end: float
+    at: float = 0.0
+
+    def sample(self, t: float):
+        return (self.end if t >= self.at else self.start), 0.0, 0.0
+
+
+@dataclass(frozen=True)
+class Ramp:
+    """Constant-speed ramp from ``start`` (rad) at ``speed`` (rad/s), from ``at`` (s) for ``duration`` (s)."""
+
+    start: float
+    speed: float
+    at: float = 0.0
+    duration: float = math.inf
+
+    def sample(self, t: float):
+        if t < self.at:
+            return self.start, 0.0, 0.0
+        if t >= self.at + self.duration:
+            return self.start + self.speed * self.duration, 0.0, 0.0
+        return self.start + self.speed * (t - self.at), self.speed, 0.0
+
+
+@dataclass(frozen=True)
+class SmoothStep:
+    """Quintic rest-to-rest transition from ``start`` to ``end`` (rad) over ``duration`` (s) from ``at`` (s).
+
+    s(u) = 10u^3 - 15u^4 + 6u^5 has zero velocity and acceleration at both ends
+    (the minimum-jerk profile).
+    """
+
+    start: float
+    end: float
+    duration: float
+    at: float = 0.0
+
+    def sample(self, t: float):
+        u = min(max((t - self.at) / self.duration, 0.0), 1.0)
+        span = self.end - self.start
+        s = u**3 * (10.0 - 15.0 * u + 6.0 * u * u)
+        ds = 30.0 * u * u * (1.0 - u) ** 2 / self.duration
+        dds = 60.0 * u * (1.0 - 3.0 * u + 2.0 * u * u) / self.duration**2
+        return self.start + span * s, span * ds, span * dds
+
+
+@dataclass(frozen=True)
+class Sinusoid:
+    """``offset + amplitude sin(2 pi frequency (t - at))`` for t >= at, ``offset`` before (rad, Hz, s)."""
+
+    offset: float
+    amplitude: float
+    frequency: float
+    at: float = 0.0
+
+    def sample(self, t: float):
+        if t < self.at:
+            return self.offset, 0.0, 0.0
+        w = 2.0 * math.pi * self.frequency
+        s, c = math.sin(w * (t - self.at)), math.cos(w * (t - self.at))
+        return self.offset + self.amplitude * s, self.amplitude * w * c, -self.amplitude * w * w * s

@@ -1,0 +1,24 @@
+"""One joint's measurement as every law and the safety filter see it."""
+from __future__ import annotations
+
+import math
+from typing import NamedTuple
+
+
+class JointSample(NamedTuple):
+    """Measured state of one series-elastic joint, link-side units.
+
+    q, dq: link position (rad) and speed (rad/s); theta, dtheta: motor position
+    (rad) and speed (rad/s) reflected through the gear; tau_s: spring torque
+    (N m) when a torque sensor reports it, NaN otherwise.
+    """
+
+    q: float
+    dq: float
+    theta: float
+    dtheta: float
+    tau_s: float = math.nan
+
+    def is_finite(self) -> bool:
+        """True when the four kinematic readings are finite (tau_s may be NaN: not measured)."""
+        return all(math.isfinite(v) for v in self[:4])

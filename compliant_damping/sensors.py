@@ -1,0 +1,49 @@
+"""What the simulated joint reports: true state plus noise, encoder quantisation and delay."""
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .sample import JointSample
+
+
+def _spec(unit: str, check: str, doc: str, default):
+    return field(default=default, metadata={"unit": unit, "check": check, "doc": doc})
+
+
+@dataclass(frozen=True)
+class SensorParams:
+    """Measurement imperfections of one simulated joint."""
+
+    position_noise: float = _spec("rad", "nonnegative", "std. dev. of white noise on q and theta", 0.0)
+    velocity_noise: float = _spec("rad/s", "nonnegative", "std. dev. of white noise on q' and theta'", 0.0)
+    torque_noise: float = _spec("N m", "nonnegative", "std. dev. of white noise on the spring torque", 0.0)
+    encoder_resolution: float = _spec("rad", "nonnegative", "position quantum of both encoders (0: none)", 0.0)
+    delay: float = _spec("s", "nonnegative", "transport delay of the readings (rounded to whole samples)", 0.0)
+
+
+class SensorChannel:
+    """Turns true states into readings, one call per sample period ``period`` (s)."""
+
+    def __init__(self, params: SensorParams, period: float, rng: np.random.Generator):
+        self.params = params
+        self.rng = rng
+        self._queue: deque = deque(maxlen=int(round(params.delay / period)) + 1)
+
+    def read(self, q: float, dq: float, theta: float, dtheta: float, tau_s: float) -> JointSample:
+        """Reading available now for the true state given (the oldest one still in the delay line)."""
+        p = self.params
+        if p.position_noise > 0.0:
+            q, theta = q + self.rng.normal(0.0, p.position_noise), theta + self.rng.normal(0.0, p.position_noise)
+        if p.velocity_noise > 0.0:
+            dq, dtheta = dq + self.rng.normal(0.0, p.velocity_noise), dtheta + self.rng.normal(0.0, p.velocity_noise)
+        if p.torque_noise > 0.0:
+            tau_s += self.rng.normal(0.0, p.torque_noise)
+        if p.encoder_resolution > 0.0:
+            r = p.encoder_resolution
+            q, theta = r * math.floor(q / r + 0.5), r * math.floor(theta / r + 0.5)
+        self._queue.append(JointSample(q, dq, theta, dtheta, tau_s))
+        return self._queue[0]
