@@ -1,0 +1,120 @@
+"""Parameter files: every class of bad input is refused with a ConfigError naming the dotted key."""
+import copy
+
+import pytest
+import yaml
+
+from compliant_damping import config
+from compliant_damping.config import CONTROLLER_NODE, SIM_NODE, ConfigError
+
+BASE = config.read(config.bundled())
+
+
+def load_changed(tmp_path, change):
+    """config.load on a copy of the bundled file after ``change(document)``."""
+    doc = copy.deepcopy(BASE)
+    change(doc)
+    path = tmp_path / "changed.yaml"
+    path.write_text(yaml.safe_dump(doc))
+    return config.load(path)
+
+
+def ctrl(doc):
+    return doc[CONTROLLER_NODE]["ros__parameters"]
+
+
+def sim(doc):
+    return doc[SIM_NODE]["ros__parameters"]
+
+
+def refused(tmp_path, change) -> ConfigError:
+    with pytest.raises(ConfigError) as info:
+        load_changed(tmp_path, change)
+    return info.value
+
+
+def test_unchanged_copy_loads(tmp_path):
+    """The helper itself does not spoil the file (so the refusals below are due to the change)."""
+    controller, simulated = load_changed(tmp_path, lambda doc: None)
+    assert controller.joint_names == simulated.joint_names == ["knee"]
+
+
+def test_unknown_key(tmp_path):
+    err = refused(tmp_path, lambda d: sim(d)["knee"].update(spring_stifness=300.0))
+    assert err.key == "knee.spring_stifness" and "unknown" in err.reason
+
+
+def test_missing_required_key(tmp_path):
+    err = refused(tmp_path, lambda d: sim(d)["knee"].pop("link_inertia"))
+    assert err.key == "knee.link_inertia" and "required" in err.reason
+
+
+def test_int_where_float_needed(tmp_path):
+    err = refused(tmp_path, lambda d: sim(d)["knee"].update(spring_stiffness=300))
+    assert err.key == "knee.spring_stiffness"
+    assert "300.0" in str(err)  # tells the user what to write
+
+
+def test_negative_inertia(tmp_path):
+    err = refused(tmp_path, lambda d: sim(d)["knee"].update(motor_inertia=-0.15))
+    assert err.key == "knee.motor_inertia" and "above zero" in err.reason
+
+
+def test_stops_in_wrong_order(tmp_path):
+    err = refused(tmp_path, lambda d: sim(d)["knee"].update(stop_lower=0.8, stop_upper=0.8))
+    assert err.key == "knee.stop_lower"
+
+
+def test_unknown_law(tmp_path):
+    err = refused(tmp_path, lambda d: ctrl(d).update(law="sky_damper"))
+    assert err.key == "law" and "decoupled_damper" in err.reason  # lists the valid choices
+
+
+def test_torque_limit_above_driver(tmp_path):
+    err = refused(tmp_path, lambda d: ctrl(d)["knee"]["limits"].update(torque=70.0, driver_torque=60.0))
+    assert err.key == "knee.limits.torque"
+
+
+def test_initial_position_outside_stops(tmp_path):
+    err = refused(tmp_path, lambda d: sim(d)["knee"].update(initial_position=0.9))
+    assert err.key == "knee.initial_position" and "end stops" in err.reason
+
+
+def test_yaml_syntax_error(tmp_path):
+    path = tmp_path / "broken.yaml"
+    path.write_text(f"{CONTROLLER_NODE}:\n  ros__parameters:\n    joint_names: [knee\n    law: zero\n")
+    with pytest.raises(ConfigError) as info:
+        config.load(path)
+    assert info.value.key == str(path) and "line" in info.value.reason  # names the file and the line
+
+
+def test_missing_node_section(tmp_path):
+    err = refused(tmp_path, lambda d: d.pop(SIM_NODE))
+    assert err.key == SIM_NODE
+
+
+def _node_setups(path):
+    """Setups for every node section a parameter file has (a file may serve one node only)."""
+    doc = config.read(path)
+    found = []
+    for node, build in ((CONTROLLER_NODE, config.controller_setup), (SIM_NODE, config.sim_setup)):
+        try:
+            params = config.node_parameters(doc, node)
+        except ConfigError as err:
+            if err.key != node:  # anything but "no section for this node" is a real error
+                raise
+            continue
+        found.append(build(params))
+    return found
+
+
+BUNDLED = sorted((config.share_dir() / "config").glob("*.yaml"))
+
+
+def test_bundled_files_exist():
+    assert BUNDLED, "no parameter files found in config/"
+
+
+@pytest.mark.parametrize("path", BUNDLED, ids=lambda p: p.name)
+def test_bundled_file_loads(path):
+    assert _node_setups(path), f"{path.name} has no section for {CONTROLLER_NODE} or {SIM_NODE}"
