@@ -6,8 +6,8 @@ import csv
 import json
 import sys
 
-from . import config, controller, scenarios, simulate
-from .laws import LAW_NAMES
+from . import analysis, config, controller, scenarios, simulate
+from .laws import LAW_NAMES, make_law
 
 
 def _load(args):
@@ -67,6 +67,44 @@ def cmd_demo(args) -> int:
     return 0
 
 
+def _joint(args, ctrl, sim):
+    """(ControllerJoint, SimJoint) named by --joint (default: the first joint)."""
+    name = args.joint or ctrl.joint_names[0]
+    if name not in ctrl.joint_names or name not in sim.joint_names:
+        raise ValueError(f"joint: {name!r} is not in both nodes' joint_names")
+    return ctrl.joints[ctrl.joint_names.index(name)], sim.joints[sim.joint_names.index(name)]
+
+
+def _modes_json(result):
+    return [{"frequency_hz": m.frequency_hz, "damping_ratio": m.damping_ratio, "link_share": m.link_share}
+            for m in result.modes]
+
+
+def cmd_analyze(args) -> int:
+    """Closed-loop poles, modes and static link stiffness of one joint at its set point (Coulomb off)."""
+    ctrl, sim = _load(args)
+    cj, sj = _joint(args, ctrl, sim)
+    q_d = sj.initial_position if args.setpoint is None else args.setpoint
+    res = analysis.analyze(sj.plant, make_law(ctrl.law, cj.model, cj.gains), q_d)
+    if args.json:
+        print(json.dumps({
+            "law": ctrl.law, "joint": cj.name, "setpoint": q_d,
+            "poles": [[float(p.real), float(p.imag)] for p in res.poles],
+            "modes": _modes_json(res),
+            "dominant_mode": res.modes.index(res.dominant),
+            "least_damped_mode": res.modes.index(res.least_damped),
+            "static_link_stiffness": res.static_link_stiffness}, indent=2))
+        return 0
+    print(f"law {ctrl.law}, joint {cj.name}, set point {q_d:g} rad, {'stable' if res.stable else 'UNSTABLE'}")
+    print(f"  {'mode':<6}{'f_n Hz':>9}{'zeta':>8}{'link share':>12}")
+    for i, m in enumerate(res.modes):
+        tag = (" dominant" if m is res.dominant else "") + (" least damped" if m is res.least_damped else "")
+        print(f"  {i:<6}{m.frequency_hz:>9.3f}{m.damping_ratio:>8.3f}{m.link_share:>12.2f}{tag}")
+    print(f"  static link stiffness {res.static_link_stiffness:.2f} N m/rad; "
+          f"2 % settling estimate 4/(zeta w_n) = {4.0 / res.dominant.decay_rate:.3f} s")
+    return 0
+
+
 def parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="cdamp", description=__doc__)
     sub = p.add_subparsers(dest="command", required=True)
@@ -81,6 +119,13 @@ def parser() -> argparse.ArgumentParser:
     d = sub.add_parser("demo", help="end-stop impact on the bundled joint, three laws compared")
     d.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
     d.set_defaults(run=cmd_demo)
+    a = sub.add_parser("analyze", help="linearise law + joint at the set point: poles, modes, static stiffness")
+    a.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
+    a.add_argument("--law", choices=LAW_NAMES, help="override the file's law")
+    a.add_argument("--joint", help="joint to analyse (default: the first)")
+    a.add_argument("--setpoint", type=float, help="link set point, rad (default: the joint's initial position)")
+    a.add_argument("--json", action="store_true", help="print the result as JSON")
+    a.set_defaults(run=cmd_analyze)
     return p
 
 
