@@ -88,7 +88,7 @@ def build(cls, params: dict, prefix: str, used: set):
     values = {}
     for key, f in dataclass_keys(cls, prefix):
         if key not in params:
-            if f.default is MISSING:
+            if f.default is MISSING or f.metadata.get("required"):
                 raise ConfigError(key, f"required ({f.metadata['doc']}, {f.metadata['unit']})")
             continue
         used.add(key)
@@ -104,24 +104,104 @@ def build(cls, params: dict, prefix: str, used: set):
         raise ConfigError(f"{prefix}{field_name}", reason) from None
 
 
-def _setting(params: dict, key: str, kind, default, used: set, choices=None, check=None):
+@dataclass(frozen=True)
+class Setting:
+    """A non-dataclass parameter: key (per joint: after "<joint>."), ROS type, default, doc.
+
+    ``default`` is MISSING for a required key, or a callable of the joint name for per-joint defaults.
+    """
+
+    key: str
+    kind: type
+    default: object
+    doc: str
+    choices: tuple = ()
+    check: str | None = None
+
+
+CONTROLLER_SETTINGS = (
+    Setting("joint_names", list, MISSING, "joints this controller drives, in command order"),
+    Setting("law", str, MISSING, "control law", LAW_NAMES),
+    Setting("safe_mode", str, "zero_torque", "what a fault commands", SAFE_MODES),
+    Setting("control_rate", float, 1000.0, "Hz, expected joint-state rate (offline: control tick)", check="positive"),
+    Setting("watchdog_timeout", float, 0.05, "s without a joint state before safe mode", check="positive"),
+    Setting("gain_ramp_time", float, 0.5, "s over which accepted gain changes blend in", check="nonnegative"),
+    Setting("lock_gains", bool, False, "refuse gain and law changes at run time"),
+    Setting("spring_torque_source", str, "deflection", "spring torque from the deflection or the effort field",
+            ("deflection", "effort")),
+    Setting("array_output", bool, False, "also publish an ordered Float64MultiArray of efforts"),
+)
+CONTROLLER_JOINT_SETTINGS = (
+    Setting("link_state", str, lambda n: n, "JointState entry with the link position and velocity"),
+    Setting("motor_state", str, lambda n: f"{n}_motor", "JointState entry with the motor position and velocity"),
+    Setting("command", str, lambda n: f"{n}_motor", "name of this joint's effort command"),
+)
+CONTROLLER_JOINT_GROUPS = (("model.", NominalModel), ("gains.", Gains), ("limits.", Limits))
+
+SIM_SETTINGS = (
+    Setting("joint_names", list, MISSING, "simulated joints"),
+    Setting("state_rate", float, 1000.0, "Hz, joint-state publication", check="positive"),
+    Setting("substeps", int, 10, "plant RK4 steps per state period"),
+    Setting("command_timeout", float, 0.05, "s; older effort commands are replaced by zero", check="positive"),
+    Setting("lock_step", bool, False, "advance one period per command and publish /clock"),
+    Setting("seed", int, 0, "seed of the sensor noise"),
+)
+SIM_JOINT_SETTINGS = (
+    Setting("initial_position", float, 0.0, "rad, link at rest there, spring holding gravity", check="finite"),
+)
+SIM_JOINT_GROUPS = (("", JointParams), ("", SensorParams))
+
+
+def _setting(params: dict, setting: Setting, used: set, joint: str | None = None):
+    key = setting.key if joint is None else f"{joint}.{setting.key}"
     used.add(key)
-    value = _typed(key, params[key], kind) if key in params else default
+    default = setting.default(joint) if callable(setting.default) else setting.default
+    value = _typed(key, params[key], setting.kind) if key in params else default
     if value is MISSING:
-        raise ConfigError(key, "required")
-    if choices is not None and value not in choices:
-        raise ConfigError(key, f"must be one of {', '.join(choices)}, got {value!r}")
-    if check is not None:
-        ok, reason = _CHECKS[check]
+        raise ConfigError(key, f"required ({setting.doc})")
+    if setting.choices and value not in setting.choices:
+        raise ConfigError(key, f"must be one of {', '.join(setting.choices)}, got {value!r}")
+    if setting.check is not None:
+        ok, reason = _CHECKS[setting.check]
         if not ok(value):
             raise ConfigError(key, f"{reason}, got {value!r}")
     return value
 
 
+def _settings(params: dict, table, used: set, joint: str | None = None) -> dict:
+    return {s.key: _setting(params, s, used, joint) for s in table}
+
+
 def _reject_unknown(params: dict, used: set, section: str):
     unknown = sorted(set(params) - used)
     if unknown:
-        raise ConfigError(unknown[0], f"unknown key in {section} (known keys are listed in DEVELOPERS.md)")
+        raise ConfigError(unknown[0], f"unknown key in {section} (`cdamp keys` lists the known keys)")
+
+
+@dataclass(frozen=True)
+class ParamSpec:
+    """One ROS parameter of a node: dotted key, ROS type, default (MISSING: required) and description."""
+
+    key: str
+    kind: type
+    default: object
+    description: str
+
+
+def parameter_specs(node: str, joint_names) -> list:
+    """Every parameter of ``node`` (CONTROLLER_NODE or SIM_NODE) for the given joints."""
+    settings, joint_settings, groups = ((CONTROLLER_SETTINGS, CONTROLLER_JOINT_SETTINGS, CONTROLLER_JOINT_GROUPS)
+                                        if node == CONTROLLER_NODE else
+                                        (SIM_SETTINGS, SIM_JOINT_SETTINGS, SIM_JOINT_GROUPS))
+    specs = [ParamSpec(s.key, s.kind, s.default, s.doc) for s in settings]
+    for n in joint_names:
+        specs += [ParamSpec(f"{n}.{s.key}", s.kind, s.default(n) if callable(s.default) else s.default, s.doc)
+                  for s in joint_settings]
+        for prefix, cls in groups:
+            specs += [ParamSpec(key, float, MISSING if f.metadata.get("required") else f.default,
+                                f"{f.metadata['doc']} [{f.metadata['unit']}]")
+                      for key, f in dataclass_keys(cls, f"{n}.{prefix}")]
+    return specs
 
 
 @dataclass(frozen=True)
@@ -157,36 +237,22 @@ class ControllerSetup:
 def controller_setup(params: dict) -> ControllerSetup:
     """Validated controller setup from flat (dotted) parameters."""
     used: set = set()
-    names = _setting(params, "joint_names", list, MISSING, used)
-    law = _setting(params, "law", str, MISSING, used, choices=LAW_NAMES)
+    top = _settings(params, CONTROLLER_SETTINGS, used)
     joints = []
-    for n in names:
+    for n in top.pop("joint_names"):
         gains = build(Gains, params, f"{n}.gains.", used)
         try:
-            check_gains(law, gains)
+            check_gains(top["law"], gains)
         except ValueError as err:  # "field: reason"
             field_name, _, reason = str(err).partition(": ")
             raise ConfigError(f"{n}.gains.{field_name}", reason) from None
         joints.append(ControllerJoint(
-            name=n,
-            link_state=_setting(params, f"{n}.link_state", str, n, used),
-            motor_state=_setting(params, f"{n}.motor_state", str, f"{n}_motor", used),
-            command=_setting(params, f"{n}.command", str, f"{n}_motor", used),
+            name=n, **_settings(params, CONTROLLER_JOINT_SETTINGS, used, n),
             model=build(NominalModel, params, f"{n}.model.", used),
             gains=gains,
             limits=build(Limits, params, f"{n}.limits.", used)))
-    setup = ControllerSetup(
-        joints=tuple(joints), law=law,
-        safe_mode=_setting(params, "safe_mode", str, "zero_torque", used, choices=SAFE_MODES),
-        control_rate=_setting(params, "control_rate", float, 1000.0, used, check="positive"),
-        watchdog_timeout=_setting(params, "watchdog_timeout", float, 0.05, used, check="positive"),
-        gain_ramp_time=_setting(params, "gain_ramp_time", float, 0.5, used, check="nonnegative"),
-        lock_gains=_setting(params, "lock_gains", bool, False, used),
-        spring_torque_source=_setting(params, "spring_torque_source", str, "deflection", used,
-                                      choices=("deflection", "effort")),
-        array_output=_setting(params, "array_output", bool, False, used))
     _reject_unknown(params, used, CONTROLLER_NODE)
-    return setup
+    return ControllerSetup(joints=tuple(joints), **top)
 
 
 @dataclass(frozen=True)
@@ -214,25 +280,18 @@ class SimSetup:
 def sim_setup(params: dict) -> SimSetup:
     """Validated simulated-joint setup from flat (dotted) parameters."""
     used: set = set()
-    names = _setting(params, "joint_names", list, MISSING, used)
+    top = _settings(params, SIM_SETTINGS, used)
+    if top["substeps"] < 1:
+        raise ConfigError("substeps", f"must be at least 1, got {top['substeps']}")
     joints = []
-    for n in names:
+    for n in top.pop("joint_names"):
         plant = build(JointParams, params, f"{n}.", used)
-        q0 = _setting(params, f"{n}.initial_position", float, 0.0, used, check="finite")
+        q0 = _settings(params, SIM_JOINT_SETTINGS, used, n)["initial_position"]
         if not plant.stop_lower <= q0 <= plant.stop_upper:
             raise ConfigError(f"{n}.initial_position", f"{q0} rad is outside the end stops")
         joints.append(SimJoint(n, plant, build(SensorParams, params, f"{n}.", used), q0))
-    setup = SimSetup(
-        joints=tuple(joints),
-        state_rate=_setting(params, "state_rate", float, 1000.0, used, check="positive"),
-        substeps=_setting(params, "substeps", int, 10, used),
-        command_timeout=_setting(params, "command_timeout", float, 0.05, used, check="positive"),
-        lock_step=_setting(params, "lock_step", bool, False, used),
-        seed=_setting(params, "seed", int, 0, used))
-    if setup.substeps < 1:
-        raise ConfigError("substeps", f"must be at least 1, got {setup.substeps}")
     _reject_unknown(params, used, SIM_NODE)
-    return setup
+    return SimSetup(joints=tuple(joints), **top)
 
 
 def flatten(tree: dict, prefix: str = "") -> dict:
@@ -246,8 +305,11 @@ def flatten(tree: dict, prefix: str = "") -> dict:
     return flat
 
 
-def node_parameters(document: dict, node: str) -> dict:
-    """Flat parameters for ``node`` from a parsed parameter file (``/**`` and namespaced sections merge)."""
+def node_parameters(document: dict, node: str, required: bool = True) -> dict:
+    """Flat parameters for ``node`` from a parsed parameter file (``/**`` and namespaced sections merge).
+
+    ``required=False``: a file without a section for ``node`` gives an empty mapping.
+    """
     if not isinstance(document, dict):
         raise ConfigError("<file>", "a parameter file is a mapping of node names to ros__parameters")
     flat = {}
@@ -256,7 +318,7 @@ def node_parameters(document: dict, node: str) -> dict:
             if not isinstance(body, dict) or not isinstance(body.get("ros__parameters"), dict):
                 raise ConfigError(str(section), "expected a 'ros__parameters' mapping")
             flat.update(flatten(body["ros__parameters"]))
-    if not flat:
+    if not flat and required:
         raise ConfigError(node, "no section for this node in the parameter file")
     return flat
 
@@ -269,10 +331,29 @@ def read(path) -> dict:
         raise ConfigError(str(path), f"not valid YAML: {err}") from None
 
 
-def load(path):
-    """(ControllerSetup, SimSetup) from one parameter file."""
-    doc = read(path)
-    return controller_setup(node_parameters(doc, CONTROLLER_NODE)), sim_setup(node_parameters(doc, SIM_NODE))
+def layered_parameters(paths, node: str) -> dict:
+    """Flat parameters for ``node`` from several parameter files in order.
+
+    A later file overrides an earlier one key by key, as ROS 2 does with several
+    ``--params-file`` arguments; files without a section for ``node`` are skipped.
+    """
+    paths = [paths] if isinstance(paths, (str, Path)) else list(paths)
+    flat = {}
+    for path in paths:
+        flat.update(node_parameters(read(path), node, required=False))
+    if not flat:
+        raise ConfigError(node, f"no section for this node in {', '.join(str(p) for p in paths) or 'no file'}")
+    return flat
+
+
+def load(*paths):
+    """(ControllerSetup, SimSetup) from one parameter file, or several layered in order."""
+    return controller_setup(layered_parameters(paths, CONTROLLER_NODE)), sim_setup(layered_parameters(paths, SIM_NODE))
+
+
+def load_controller(*paths) -> ControllerSetup:
+    """ControllerSetup alone, for files without a simulated joint (hardware_template.yaml), layered in order."""
+    return controller_setup(layered_parameters(paths, CONTROLLER_NODE))
 
 
 def share_dir() -> Path:

@@ -46,17 +46,18 @@ from .sample import JointSample
 LAW_NAMES = ("zero", "motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
 
 
-def _spec(unit: str, check: str, doc: str, default):
-    return field(default=default, metadata={"unit": unit, "check": check, "doc": doc})
+def _spec(unit: str, check: str, doc: str, default, required: bool = False):
+    """Field with unit, validity check and doc; ``required``: a parameter file must state it."""
+    return field(default=default, metadata={"unit": unit, "check": check, "doc": doc, "required": required})
 
 
 @dataclass(frozen=True)
 class NominalModel:
     """The controller's own model of the joint (need not equal the plant)."""
 
-    link_inertia: float = _spec("kg m^2", "positive", "nominal link inertia M", 1.0)
-    motor_inertia: float = _spec("kg m^2", "positive", "nominal motor inertia B (link side)", 1.0)
-    spring_stiffness: float = _spec("N m/rad", "positive", "nominal spring stiffness k", 100.0)
+    link_inertia: float = _spec("kg m^2", "positive", "nominal link inertia M", 1.0, required=True)
+    motor_inertia: float = _spec("kg m^2", "positive", "nominal motor inertia B (link side)", 1.0, required=True)
+    spring_stiffness: float = _spec("N m/rad", "positive", "nominal spring stiffness k", 100.0, required=True)
     gravity_torque: float = _spec("N m", "nonnegative", "nominal pendulum load m g0 l", 0.0)
     gravity_offset: float = _spec("rad", "finite", "nominal pendulum offset q_off", 0.0)
 
