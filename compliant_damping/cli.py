@@ -3,20 +3,21 @@ from __future__ import annotations
 
 import argparse
 import csv
+import dataclasses
 import json
 import sys
 
-from . import analysis, config, controller, scenarios, simulate
+from . import analysis, config, controller, scenarios, simulate, tuning
 from .laws import LAW_NAMES, make_law
 
 
 def _load(args):
-    """(ControllerSetup, SimSetup) from --config (default: the bundled one-joint file), --layer files and --law."""
-    paths = [args.config or config.bundled()] + (getattr(args, "layer", None) or [])
-    ctrl = config.layered_parameters(paths, config.CONTROLLER_NODE)
+    """(ControllerSetup, SimSetup) from --config (default: the bundled one-joint file) and --law."""
+    doc = config.read(args.config or config.bundled())
+    ctrl = config.node_parameters(doc, config.CONTROLLER_NODE)
     if getattr(args, "law", None):
         ctrl["law"] = args.law
-    return config.controller_setup(ctrl), config.sim_setup(config.layered_parameters(paths, config.SIM_NODE))
+    return config.controller_setup(ctrl), config.sim_setup(config.node_parameters(doc, config.SIM_NODE))
 
 
 def _write_csv(path, result):
@@ -67,18 +68,6 @@ def cmd_demo(args) -> int:
     return 0
 
 
-def cmd_keys(args) -> int:
-    """Every parameter key of both nodes, for the joints of --config (default: the bundled file)."""
-    doc = config.read(args.config or config.bundled())
-    for node in (config.CONTROLLER_NODE, config.SIM_NODE):
-        names = config.node_parameters(doc, node).get("joint_names", ["<joint>"])
-        print(f"{node}:")
-        for spec in config.parameter_specs(node, names):
-            default = "required" if spec.default is config.MISSING else repr(spec.default)
-            print(f"  {spec.key:<40} {spec.kind.__name__:<6} {default:<14} {spec.description}")
-    return 0
-
-
 def _joint(args, ctrl, sim):
     """(ControllerJoint, SimJoint) named by --joint (default: the first joint)."""
     name = args.joint or ctrl.joint_names[0]
@@ -117,14 +106,72 @@ def cmd_analyze(args) -> int:
     return 0
 
 
+def cmd_tune(args) -> int:
+    """Sweep k_v of decoupled_damper: impact torque rate and peak vs the least-damped mode; recommend one."""
+    from tqdm import tqdm
+    ctrl, sim = _load(args)
+    cj, sj = _joint(args, ctrl, sim)
+    grid = tuning.log_grid(args.kv_min, args.kv_max, args.points)
+    with tqdm(total=len(grid), desc="k_v sweep", unit="k_v", file=sys.stderr, disable=args.json) as bar:
+        points = tuning.sweep_decoupling_stiffness(cj, sj, grid, control_dt=1.0 / ctrl.control_rate,
+                                                   substeps=sim.substeps, progress=lambda _: bar.update())
+    best = tuning.recommend(points, args.min_damping_ratio)
+    if args.plot:
+        _plot_tune(args.plot, points, best, args.min_damping_ratio, cj.limits)
+    if args.json:
+        print(json.dumps({"law": tuning.LAW, "joint": cj.name, "min_damping_ratio": args.min_damping_ratio,
+                          "limits": {"torque": cj.limits.torque, "torque_rate": cj.limits.torque_rate},
+                          "points": [dataclasses.asdict(p) for p in points],
+                          "recommended_decoupling_stiffness": None if best is None else best.decoupling_stiffness},
+                         indent=2))
+        return 0
+    print(f"decoupled_damper on {cj.name}: end_stop_impact vs least-damped mode "
+          f"(limits {cj.limits.torque:g} N m, {cj.limits.torque_rate:g} N m/s)")
+    print(f"{'k_v N m/rad':>12}{'peak rate N m/s':>17}{'peak |tau| N m':>16}{'zeta':>7}{'f_n Hz':>8}"
+          f"{'link share':>11}  limits")
+    for p in points:
+        mark = " <- recommended" if p is best else ""
+        print(f"{p.decoupling_stiffness:>12.4g}{p.peak_torque_rate:>17.0f}{p.peak_torque:>16.2f}"
+              f"{p.damping_ratio:>7.3f}{p.mode_frequency_hz:>8.2f}{p.link_share:>11.2f}  "
+              f"{'ok' if p.within_limits else 'HIT'}{mark}")
+    if best is None:
+        print(f"no k_v in the range keeps zeta >= {args.min_damping_ratio} within the limits")
+    else:
+        print(f"recommended: decoupling_stiffness {best.decoupling_stiffness:.4g} N m/rad (softest with "
+              f"zeta >= {args.min_damping_ratio}, common practice, and inside the torque and slew limits)")
+    return 0
+
+
+def _plot_tune(path, points, best, min_zeta, limits):
+    """Two panels over k_v: impact torque rate and least-damped damping ratio."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    kv = [p.decoupling_stiffness for p in points]
+    fig, (top, bottom) = plt.subplots(2, 1, sharex=True, figsize=(6.0, 5.0))
+    top.loglog(kv, [p.peak_torque_rate for p in points], "o-")
+    top.axhline(limits.torque_rate, color="r", ls="--", label="slew limit")
+    top.set_ylabel("impact peak |dtau_m/dt| (N m/s)")
+    top.legend()
+    bottom.semilogx(kv, [p.damping_ratio for p in points], "o-")
+    bottom.axhline(min_zeta, color="r", ls="--", label=f"zeta = {min_zeta}")
+    if best is not None:
+        for ax in (top, bottom):
+            ax.axvline(best.decoupling_stiffness, color="g", ls=":")
+    bottom.set_xlabel("decoupling stiffness k_v (N m/rad)")
+    bottom.set_ylabel("least-damped zeta")
+    bottom.legend()
+    fig.tight_layout()
+    fig.savefig(path, dpi=120)
+    plt.close(fig)
+
+
 def parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="cdamp", description=__doc__)
     sub = p.add_subparsers(dest="command", required=True)
     s = sub.add_parser("simulate", help="run a bundled scenario on the simulated joint, print metrics")
     s.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
     s.add_argument("--law", choices=LAW_NAMES, help="override the file's law")
-    s.add_argument("--layer", action="append", metavar="FILE",
-                   help="parameter file layered over --config, key by key (repeatable; e.g. config/laws/*.yaml)")
     s.add_argument("--scenario", choices=scenarios.SCENARIOS, default="end_stop_impact")
     s.add_argument("--duration", type=float, help="seconds to simulate (default: the scenario's)")
     s.add_argument("--csv", help="write the time series to this CSV file")
@@ -133,18 +180,24 @@ def parser() -> argparse.ArgumentParser:
     d = sub.add_parser("demo", help="end-stop impact on the bundled joint, three laws compared")
     d.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
     d.set_defaults(run=cmd_demo)
-    k = sub.add_parser("keys", help="list every parameter key with type, default, unit and meaning")
-    k.add_argument("--config", help="parameter file whose joint names to use (default: bundled)")
-    k.set_defaults(run=cmd_keys)
     a = sub.add_parser("analyze", help="linearise law + joint at the set point: poles, modes, static stiffness")
     a.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
-    a.add_argument("--layer", action="append", metavar="FILE",
-                   help="parameter file layered over --config, key by key (repeatable; e.g. config/laws/*.yaml)")
     a.add_argument("--law", choices=LAW_NAMES, help="override the file's law")
     a.add_argument("--joint", help="joint to analyse (default: the first)")
     a.add_argument("--setpoint", type=float, help="link set point, rad (default: the joint's initial position)")
     a.add_argument("--json", action="store_true", help="print the result as JSON")
     a.set_defaults(run=cmd_analyze)
+    t = sub.add_parser("tune", help="sweep decoupled_damper's k_v: impact torque vs link damping, recommend one")
+    t.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
+    t.add_argument("--joint", help="joint to tune (default: the first)")
+    t.add_argument("--kv-min", type=float, default=10.0, help="softest k_v, N m/rad (default 10)")
+    t.add_argument("--kv-max", type=float, default=1.0e4, help="stiffest k_v, N m/rad (default 1e4)")
+    t.add_argument("--points", type=int, default=31, help="log-spaced k_v values (default 31)")
+    t.add_argument("--min-damping-ratio", type=float, default=0.4,
+                   help="least damping ratio to keep (default 0.4, common practice)")
+    t.add_argument("--plot", help="write a PNG of the trade-off here")
+    t.add_argument("--json", action="store_true", help="print the sweep as JSON")
+    t.set_defaults(run=cmd_tune)
     return p
 
 
