@@ -12,12 +12,12 @@ from .laws import LAW_NAMES, make_law
 
 
 def _load(args):
-    """(ControllerSetup, SimSetup) from --config (default: the bundled one-joint file) and --law."""
-    doc = config.read(args.config or config.bundled())
-    ctrl = config.node_parameters(doc, config.CONTROLLER_NODE)
+    """(ControllerSetup, SimSetup) from --config (default: the bundled one-joint file), --layer files and --law."""
+    paths = [args.config or config.bundled()] + (getattr(args, "layer", None) or [])
+    ctrl = config.layered_parameters(paths, config.CONTROLLER_NODE)
     if getattr(args, "law", None):
         ctrl["law"] = args.law
-    return config.controller_setup(ctrl), config.sim_setup(config.node_parameters(doc, config.SIM_NODE))
+    return config.controller_setup(ctrl), config.sim_setup(config.layered_parameters(paths, config.SIM_NODE))
 
 
 def _write_csv(path, result):
@@ -65,6 +65,18 @@ def cmd_demo(args) -> int:
     print(f"{'law':<18}{'peak |tau| N m':>16}{'peak rate N m/s':>18}{'max q rad':>11}")
     for law, tau, rate, qmax in rows:
         print(f"{law:<18}{tau:>16.2f}{rate:>18.0f}{qmax:>11.4f}")
+    return 0
+
+
+def cmd_keys(args) -> int:
+    """Every parameter key of both nodes, for the joints of --config (default: the bundled file)."""
+    doc = config.read(args.config or config.bundled())
+    for node in (config.CONTROLLER_NODE, config.SIM_NODE):
+        names = config.node_parameters(doc, node).get("joint_names", ["<joint>"])
+        print(f"{node}:")
+        for spec in config.parameter_specs(node, names):
+            default = "required" if spec.default is config.MISSING else repr(spec.default)
+            print(f"  {spec.key:<40} {spec.kind.__name__:<6} {default:<14} {spec.description}")
     return 0
 
 
@@ -172,6 +184,8 @@ def parser() -> argparse.ArgumentParser:
     s = sub.add_parser("simulate", help="run a bundled scenario on the simulated joint, print metrics")
     s.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
     s.add_argument("--law", choices=LAW_NAMES, help="override the file's law")
+    s.add_argument("--layer", action="append", metavar="FILE",
+                   help="parameter file layered over --config, key by key (repeatable; e.g. config/laws/*.yaml)")
     s.add_argument("--scenario", choices=scenarios.SCENARIOS, default="end_stop_impact")
     s.add_argument("--duration", type=float, help="seconds to simulate (default: the scenario's)")
     s.add_argument("--csv", help="write the time series to this CSV file")
@@ -180,8 +194,13 @@ def parser() -> argparse.ArgumentParser:
     d = sub.add_parser("demo", help="end-stop impact on the bundled joint, three laws compared")
     d.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
     d.set_defaults(run=cmd_demo)
+    k = sub.add_parser("keys", help="list every parameter key with type, default, unit and meaning")
+    k.add_argument("--config", help="parameter file whose joint names to use (default: bundled)")
+    k.set_defaults(run=cmd_keys)
     a = sub.add_parser("analyze", help="linearise law + joint at the set point: poles, modes, static stiffness")
     a.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
+    a.add_argument("--layer", action="append", metavar="FILE",
+                   help="parameter file layered over --config, key by key (repeatable; e.g. config/laws/*.yaml)")
     a.add_argument("--law", choices=LAW_NAMES, help="override the file's law")
     a.add_argument("--joint", help="joint to analyse (default: the first)")
     a.add_argument("--setpoint", type=float, help="link set point, rad (default: the joint's initial position)")
