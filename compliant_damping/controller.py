@@ -4,6 +4,7 @@ Used tick by tick by the offline simulator and the ROS controller node alike.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import fields
 
 from .laws import Gains, LawRunner, NominalModel, check_gains, make_law
@@ -50,12 +51,14 @@ class JointController:
         """Motor torque command (N m) for reading ``s``, reference ``ref`` = (q_d, q_d', q_d''), at ``t``."""
         self.last_reading_time = t
         tau = float("nan")
+        if self.safety.fault is None and s.is_finite() and not all(math.isfinite(v) for v in ref):
+            self.safety.trip("non-finite reference")  # laws cannot take it (math.sin(inf) raises)
         if self.safety.fault is None and s.is_finite():
             self._apply_ramp(s, ref, t)
             if self._runner is None:
                 self._runner = LawRunner(make_law(self.law_name, self.model, self.gains), s, ref,
                                          previous_torque=self.safety.last_torque)
-            tau = self._runner.step(s, ref, dt)
+            tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
         elif self.safety.fault is not None:
             tau = 0.0  # ignored: in fault the filter commands the safe torque
         return self.safety.filter(s, tau, dt)

@@ -58,7 +58,7 @@ class SafetyFilter:
         self.safe_mode = safe_mode
         self.last_torque = 0.0
         self.fault: str | None = None
-        self._last_sample: JointSample | None = None  # last finite reading, for reset
+        self._last_sample: JointSample | None = None  # last reading, for reset
 
     def violation(self, s: JointSample) -> str | None:
         """Reason why ``s`` is unsafe, or None."""
@@ -87,8 +87,7 @@ class SafetyFilter:
             reason = "non-finite torque from the law"
         if reason is not None:
             self.trip(reason)
-        if s.is_finite():
-            self._last_sample = s
+        self._last_sample = s
         return self.limit(tau if self.fault is None else self.safe_torque(s), dt)
 
     def safe_torque(self, s: JointSample | None) -> float:
@@ -100,8 +99,8 @@ class SafetyFilter:
     def limit(self, tau: float, dt: float) -> float:
         """Saturate and slew-limit ``tau`` against the last command; remembers the result."""
         lim = self.limits
-        if not math.isfinite(tau):
-            tau = 0.0
+        if math.isnan(tau):
+            tau = 0.0  # an overflowed (infinite) target saturates below
         step = lim.torque_rate * max(dt, 0.0) if math.isfinite(dt) else 0.0
         tau = min(max(tau, -lim.torque), lim.torque)
         tau = min(max(tau, self.last_torque - step), self.last_torque + step)
