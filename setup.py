@@ -13,6 +13,7 @@ setup(
         ("share/ament_index/resource_index/packages", [f"resource/{PACKAGE}"]),
         (f"share/{PACKAGE}", ["package.xml"]),
         (f"share/{PACKAGE}/config", glob("config/*.yaml")),
+        (f"share/{PACKAGE}/config/laws", glob("config/laws/*.yaml")),
         (f"share/{PACKAGE}/launch", glob("launch/*.py")),
     ],
     install_requires=["setuptools"],
