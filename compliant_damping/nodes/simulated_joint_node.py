@@ -1,0 +1,175 @@
+"""``simulated_joint``: the joints of the ``simulated_joint`` parameter section, stepped with
+plant.Plant (model.advance with substeps and sensors.SensorChannel: the offline simulator's code).
+
+Topics (relative names):
+
+* ``joint_states`` out: per joint the link entry ``<joint>`` (q, q', effort = spring torque) and
+  the motor entry ``<joint>_motor`` (theta, theta', effort = motor torque applied over the last period).
+* ``motor_effort`` in (sensor_msgs/JointState): torque (N m) by command name ``<joint>_motor``.
+  A joint without a command newer than command_timeout gets zero torque.
+* ``external_torque`` in (sensor_msgs/JointState): effort = constant external link torque (N m)
+  per joint name, from header.stamp (zero or past: at once) until the next message for that
+  joint; publish 0.0 to remove it. This is the torque step.
+* ``external_impulse`` in (sensor_msgs/JointState): effort = angular impulse (N m s) per joint
+  name, delivered as a rectangular pulse over one state period from header.stamp (or at once).
+* ``/clock`` out (rosgraph_msgs/Clock) in lock-step mode.
+
+Parameters: config.parameter_specs. The plant keys (``<joint>.stop_lower``, ``<joint>.stop_upper``
+to move the end stops, and every other model.JointParams field) change at run time, validated by
+config.sim_setup, e.g. ``ros2 param set /simulated_joint knee.stop_upper 0.5``; the rest is fixed.
+
+Modes:
+
+* real time (``lock_step: false``): a timer at state_rate advances one period and publishes;
+  sensor-data QoS (best effort, keep last 5).
+* lock step (``lock_step: true``): sim time starts at 0; the first state and /clock go out at
+  start; each ``motor_effort`` whose header.stamp equals the last state's stamp advances exactly
+  one period (other commands are ignored) and /clock and the new state go out. Reliable QoS.
+  When no such command comes for 0.2 s of wall time, the last state is sent again with its
+  stamp unchanged, so a late-starting or late-activated controller picks the loop up.
+"""
+from __future__ import annotations
+
+import math
+import sys
+from dataclasses import fields
+
+import rclpy
+from builtin_interfaces.msg import Time
+from rclpy.clock import Clock, ClockType
+from rclpy.executors import ExternalShutdownException
+from rclpy.node import Node
+from rclpy.qos import QoSProfile, qos_profile_sensor_data
+from rosgraph_msgs.msg import Clock as ClockMsg
+from sensor_msgs.msg import JointState
+
+from .. import config
+from .. import joint_state_codec as codec
+from ..model import JointParams
+from ..plant import Plant
+from . import params
+
+REPEAT_AFTER = 0.2  # s of wall time without an answering command before the state is sent again
+
+
+def _ns(stamp) -> int:
+    return stamp.sec * 1_000_000_000 + stamp.nanosec
+
+
+class SimulatedJointNode(Node):
+    def __init__(self, **kwargs):
+        super().__init__(config.SIM_NODE, **kwargs)
+        self._keys = params.declare(self, config.SIM_NODE)
+        self.setup = config.sim_setup(params.values(self, self._keys))
+        self.plant = Plant(self.setup)
+        names = self.setup.joint_names
+        self._commands = [f"{n}_motor" for n in names]
+        self._latest = [(0.0, -math.inf)] * len(names)  # (torque N m, arrival s) per joint
+        self._plant_keys = {f"{n}.{f.name}" for n in names for f in fields(JointParams)}
+        self._period_ns = round(1e9 * self.plant.period)
+        lock = self.setup.lock_step
+        qos = QoSProfile(depth=10) if lock else qos_profile_sensor_data
+        self._pub = self.create_publisher(JointState, "joint_states", qos)
+        self.create_subscription(JointState, "motor_effort", self._on_command, qos)
+        self.create_subscription(JointState, "external_torque", self._on_external_torque, 10)
+        self.create_subscription(JointState, "external_impulse", self._on_external_impulse, 10)
+        self.add_on_set_parameters_callback(self._on_set_parameters)
+        if lock:
+            self._clock = self.create_publisher(ClockMsg, "/clock", 10)
+            self._moved = True
+            self.create_timer(REPEAT_AFTER, self._on_repeat, clock=Clock(clock_type=ClockType.STEADY_TIME))
+            self._publish()
+        else:
+            self.create_timer(self.plant.period, self._on_tick)
+
+    def _state_time(self) -> float:
+        """Time of the last published state (s): sim time in lock step, the node clock otherwise."""
+        return self.plant.t if self.setup.lock_step else self.get_clock().now().nanoseconds * 1e-9
+
+    def _on_command(self, msg):
+        taus = codec.pick_values(msg.name, msg.effort, self._commands)
+        if isinstance(taus, str):
+            self.get_logger().warning(f"motor effort rejected: {taus}", throttle_duration_sec=1.0)
+            return
+        if self.setup.lock_step:
+            if _ns(msg.header.stamp) == self.plant.ticks * self._period_ns:
+                self.plant.advance([0.0 if t is None else t for t in taus])
+                self._moved = True
+                self._publish()
+            return
+        now = self._state_time()
+        self._latest = [old if t is None else (t, now) for t, old in zip(taus, self._latest)]
+
+    def _on_tick(self):
+        now, timeout = self._state_time(), self.setup.command_timeout
+        self.plant.advance([tau if now - t <= timeout else 0.0 for tau, t in self._latest])
+        self._publish()
+
+    def _on_repeat(self):
+        if not self._moved:
+            self._publish()
+        self._moved = False
+
+    def _external(self, msg, apply):
+        values = codec.pick_values(msg.name, msg.effort, self.setup.joint_names)
+        if isinstance(values, str):
+            self.get_logger().warning(f"external torque rejected: {values}")
+            return
+        stamp = _ns(msg.header.stamp) * 1e-9
+        start = self.plant.t + (max(stamp - self._state_time(), 0.0) if stamp else 0.0)
+        for j, v in enumerate(values):
+            if v is not None:
+                apply(j, v, start)
+
+    def _on_external_torque(self, msg):
+        self._external(msg, self.plant.hold_torque)
+
+    def _on_external_impulse(self, msg):
+        self._external(msg, self.plant.add_impulse)
+
+    def _on_set_parameters(self, changes):
+        new = params.changed(self, self._keys, changes)
+        fixed = sorted(set(new) - self._plant_keys)
+        if fixed:
+            return params.result(f"{fixed[0]}: fixed after start; only plant parameters change at run time")
+        try:
+            setup = config.sim_setup(params.values(self, self._keys, changes))
+        except config.ConfigError as err:
+            return params.result(str(err))
+        self.plant.set_joints(setup.joints)
+        self.setup = setup
+        return params.result(None)
+
+    def _publish(self):
+        if self.setup.lock_step:
+            ns = self.plant.ticks * self._period_ns
+            stamp = Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
+            self._clock.publish(ClockMsg(clock=stamp))
+        else:
+            stamp = self.get_clock().now().to_msg()
+        name, pos, vel, eff = codec.encode_states(self.setup.joint_names, self.plant.readings, self.plant.applied)
+        msg = JointState(name=name, position=pos, velocity=vel, effort=eff)
+        msg.header.stamp = stamp
+        self._pub.publish(msg)
+
+
+def main(args=None):
+    rclpy.init(args=args)
+    node = None
+    try:
+        node = SimulatedJointNode()
+        rclpy.spin(node)
+    except config.ConfigError as err:
+        print(f"simulated_joint: {err}", file=sys.stderr)
+        return 2
+    except (KeyboardInterrupt, ExternalShutdownException):
+        pass
+    finally:
+        if node is not None:
+            node.destroy_node()
+        rclpy.try_shutdown()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,126 @@
+"""In-process ROS harness: both nodes and a probe node in one executor, on a fresh rclpy Context.
+
+The controller runs on sim time; the simulated joint in lock step, so a run is deterministic.
+Every wait is ``spin_until`` with a deadline.
+"""
+from __future__ import annotations
+
+import time
+
+import pytest
+import rclpy
+from builtin_interfaces.msg import Time
+from diagnostic_msgs.msg import DiagnosticArray
+from rclpy.context import Context
+from rclpy.executors import SingleThreadedExecutor
+from rclpy.parameter import Parameter
+from rclpy.qos import QoSProfile
+from rosgraph_msgs.msg import Clock
+from sensor_msgs.msg import JointState
+from std_srvs.srv import Trigger
+
+from compliant_damping import config
+from compliant_damping.nodes.controller_node import ControllerNode
+from compliant_damping.nodes.simulated_joint_node import SimulatedJointNode
+
+DOC = config.read(config.bundled())
+
+
+def stamp(t: float) -> Time:
+    ns = round(t * 1e9)
+    return Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
+
+
+def seconds(msg_stamp) -> float:
+    return msg_stamp.sec + msg_stamp.nanosec * 1e-9
+
+
+class Probe:
+    """Test node: records motor_effort, joint_states and /diagnostics; publishes what a test needs."""
+
+    def __init__(self, context):
+        self.node = rclpy.create_node("test_probe", context=context)
+        reliable = QoSProfile(depth=100)
+        self.efforts, self.states, self.diagnostics = [], [], []
+        self.node.create_subscription(JointState, "motor_effort", self.efforts.append, reliable)
+        self.node.create_subscription(JointState, "joint_states", self.states.append, reliable)
+        self.node.create_subscription(DiagnosticArray, "/diagnostics", self.diagnostics.append, 10)
+        self.reference = self.node.create_publisher(JointState, "link_reference", reliable)
+        self.joint_states = self.node.create_publisher(JointState, "joint_states", reliable)
+        self.clock = self.node.create_publisher(Clock, "/clock", 10)
+
+    def trigger(self, harness, service: str):
+        """Call a std_srvs/Trigger service of the controller; returns the response."""
+        client = self.node.create_client(Trigger, f"/{config.CONTROLLER_NODE}/{service}")
+        assert harness.spin_until(client.service_is_ready, 5.0), f"{service} not available"
+        future = client.call_async(Trigger.Request())
+        assert harness.spin_until(future.done, 5.0), f"{service} gave no answer"
+        self.node.destroy_client(client)
+        return future.result()
+
+
+class Harness:
+    def __init__(self, context):
+        self.context = context
+        self.executor = SingleThreadedExecutor(context=context)
+        self.nodes = []
+        self.probe = Probe(context)
+        self._add(self.probe.node)
+
+    def _add(self, node):
+        self.executor.add_node(node)
+        self.nodes.append(node)
+        return node
+
+    def controller(self, **overrides) -> ControllerNode:
+        """Controller with the bundled parameters, ``overrides`` (dotted keys via '__' in names), on sim time."""
+        values = {**config.node_parameters(DOC, config.CONTROLLER_NODE), **_dotted(overrides), "use_sim_time": True}
+        return self._add(ControllerNode(context=self.context, parameter_overrides=_params(values)))
+
+    def simulated_joint(self, **overrides) -> SimulatedJointNode:
+        values = {**config.node_parameters(DOC, config.SIM_NODE), "lock_step": True, **_dotted(overrides)}
+        return self._add(SimulatedJointNode(context=self.context, parameter_overrides=_params(values)))
+
+    def spin_until(self, condition, timeout: float = 10.0) -> bool:
+        deadline = time.monotonic() + timeout
+        while not condition():
+            if time.monotonic() > deadline:
+                return False
+            self.executor.spin_once(timeout_sec=0.01)
+        return True
+
+    def spin_for(self, seconds_wall: float) -> None:
+        deadline = time.monotonic() + seconds_wall
+        while time.monotonic() < deadline:
+            self.executor.spin_once(timeout_sec=0.01)
+
+    def publish_when_heard(self, publisher, msg, timeout: float = 5.0) -> None:
+        """Publish once some subscriber is matched (reliable QoS then delivers)."""
+        assert self.spin_until(lambda: publisher.get_subscription_count() > 0, timeout), "no subscriber"
+        publisher.publish(msg)
+
+    def close(self):
+        self.executor.shutdown()
+        for node in self.nodes:
+            node.destroy_node()
+
+
+def _dotted(overrides: dict) -> dict:
+    return {k.replace("__", "."): v for k, v in overrides.items()}
+
+
+def _params(values: dict) -> list:
+    return [Parameter(k, value=v) for k, v in values.items()]
+
+
+@pytest.fixture
+def ros():
+    """A Harness on a fresh rclpy Context, shut down afterwards."""
+    context = Context()
+    rclpy.init(context=context)
+    harness = Harness(context)
+    try:
+        yield harness
+    finally:
+        harness.close()
+        rclpy.try_shutdown(context=context)

@@ -1,0 +1,125 @@
+"""Both nodes in one executor (lock step, bundled parameters): closed-loop behaviour over ROS.
+
+Checked against the offline simulator (simulate.simulate on the same file and scenario) and
+the closed-loop poles of analysis.analyze (cross-checked there with scipy.linalg.eig).
+"""
+import math
+
+import numpy as np
+import pytest
+from rclpy.parameter import Parameter
+from sensor_msgs.msg import JointState
+
+from compliant_damping import analysis, config, controller, laws, scenarios, simulate
+from node_harness import DOC, ros, seconds, stamp  # noqa: F401 (ros is a fixture)
+
+pytestmark = pytest.mark.ros
+
+STEP_AT, STEP = 0.1, 0.05  # the setpoint_step scenario: +0.05 rad at 0.1 s
+
+
+def _reference(t: float, q: float) -> JointState:
+    msg = JointState(name=["knee"], position=[q], velocity=[0.0])
+    msg.header.stamp = stamp(t)
+    return msg
+
+
+def _start_loop(ros, law="decoupled_damper", reference=None, **overrides):
+    """Active controller, a reference queued in it, then the simulated joint (which starts the loop)."""
+    ctrl = ros.controller(law=law, **overrides)
+    assert ctrl.trigger_configure().name == "SUCCESS" and ctrl.trigger_activate().name == "SUCCESS"
+    if reference is not None:
+        ros.publish_when_heard(ros.probe.reference, reference)
+        assert ros.spin_until(lambda: len(ctrl.refs) == 1, 5.0)
+    return ctrl, ros.simulated_joint()
+
+
+def _link_positions(states, duration):
+    """{tick: q} from recorded joint_states (repeats share a stamp)."""
+    return {round(seconds(m.header.stamp) * 1000): m.position[0] for m in states
+            if seconds(m.header.stamp) < duration - 1e-9}
+
+
+def test_setpoint_settles_like_dominant_pole_and_matches_offline(ros):
+    duration = 1.0
+    ctrl, sim = _start_loop(ros, reference=_reference(STEP_AT, STEP))
+    assert ros.spin_until(lambda: sim.plant.ticks >= round(duration * 1000), 60.0), "loop stalled"
+    q_ros = _link_positions(ros.probe.states, duration)
+    assert sorted(q_ros) == list(range(round(duration * 1000)))
+
+    ctrl_setup, sim_setup = config.load(config.bundled())
+    scenario = scenarios.make("setpoint_step", sim_setup.joints, step=STEP)
+    offline = simulate.simulate(sim_setup.joints, controller.bank(ctrl_setup), scenario, duration,
+                                control_dt=1.0 / ctrl_setup.control_rate, substeps=sim_setup.substeps)
+    q = np.array([q_ros[k] for k in range(len(offline.t))])
+    difference = np.max(np.abs(q - offline.q[:, 0]))
+    print(f"max |q_ros - q_offline| = {difference:.3g} rad")
+    assert difference < 1e-3
+
+    # Settling into 0.01 rad of the new set point vs the dominant pole of the linearised loop:
+    # a single-pole envelope exp(-sigma t) shrinks the step to the band after ln(step/band)/sigma
+    # (the 2 % version, 4/sigma, is common practice); other modes make it an estimate, so the
+    # measured time must lie within a factor of about three of it.
+    target = STEP
+    outside = np.nonzero((offline.t >= STEP_AT) & (np.abs(q - target) > 0.01))[0]
+    settling = offline.t[outside[-1] + 1] - STEP_AT
+    joint = ctrl_setup.joints[0]
+    sigma = analysis.analyze(sim_setup.joints[0].plant, laws.make_law("decoupled_damper", joint.model, joint.gains),
+                             target).dominant.decay_rate
+    estimate = math.log(STEP / 0.01) / sigma
+    print(f"settling to 0.01 rad: {settling:.3f} s; dominant pole -{sigma:.2f} 1/s gives {estimate:.3f} s")
+    assert 0.3 * estimate <= settling <= 1.5 * estimate
+    assert abs(q[-1] - target) < 1e-3
+    assert ctrl.bank[0].fault is None
+
+
+def test_law_switch_under_motion_is_bumpless(ros):
+    # Slew limit raised far above the bundled 1e4 N m/s so that it cannot hide a jump.
+    ctrl, sim = _start_loop(ros, law="motor_pd", reference=_reference(0.02, 0.3),
+                            knee__limits__torque_rate=1.0e6)
+    assert ros.spin_until(lambda: sim.plant.ticks >= 80, 30.0)
+    switched_after = ctrl._answered
+    assert ctrl.set_parameters([Parameter("law", value="decoupled_damper")])[0].successful
+    assert ros.spin_until(lambda: sim.plant.ticks >= 120, 30.0)
+    by_stamp = {round(seconds(m.header.stamp) * 1e9): m.effort[0] for m in ros.probe.efforts}
+    ticks = sorted(by_stamp)
+    i = ticks.index(switched_after)
+    before, last, first = by_stamp[ticks[i - 1]], by_stamp[ticks[i]], by_stamp[ticks[i + 1]]
+    bundled_rate = config.node_parameters(DOC, config.CONTROLLER_NODE)["knee.limits.torque_rate"]
+    jump, usual = abs(first - last), abs(last - before)
+    print(f"law switch under motion: tau {last:.4f} -> {first:.4f} N m (tick before: change {usual:.4f} N m)")
+    assert abs(sim.plant.x[0, 1]) > 0.1  # the link is moving
+    assert jump <= bundled_rate * 1e-3
+    # A restart from fresh states (x = q) would jump by the damper's stored force; bumpless
+    # initialisation reproduces the last command, so the jump is one tick's change.
+    assert jump <= 3.0 * usual + 1e-6
+    assert ctrl.bank[0].law_name == "decoupled_damper" and ctrl.bank[0].fault is None
+
+
+def test_rejected_parameter_changes_keep_old_values(ros):
+    ctrl = ros.controller()
+    assert ctrl.trigger_configure().name == "SUCCESS"
+    cases = [("knee.gains.motor_stiffness", -50.0, "knee.gains.motor_stiffness"),
+             ("knee.limits.torque", 80.0, "driver"),
+             ("knee.model.spring_stiffness", 250.0, "only while unconfigured")]
+    for key, value, said in cases:
+        old = ctrl.get_parameter(key).value
+        old_setup = ctrl.setup
+        result = ctrl.set_parameters([Parameter(key, value=value)])[0]
+        print(f"{key} = {value}: refused: {result.reason}")
+        assert not result.successful and said in result.reason
+        assert ctrl.get_parameter(key).value == old and ctrl.setup is old_setup
+    # an accepted change reaches the running controller
+    assert ctrl.set_parameters([Parameter("knee.limits.torque", value=30.0)])[0].successful
+    assert ctrl.bank[0].safety.limits.torque == 30.0
+
+
+def test_lock_gains_refuses_law_and_gain_changes(ros):
+    ctrl = ros.controller(lock_gains=True)
+    assert ctrl.trigger_configure().name == "SUCCESS"
+    for key, value in (("law", "motor_pd"), ("knee.gains.link_damping", 5.0)):
+        result = ctrl.set_parameters([Parameter(key, value=value)])[0]
+        assert not result.successful and "lock_gains" in result.reason
+    bundled = config.node_parameters(DOC, config.CONTROLLER_NODE)
+    assert ctrl.bank[0].law_name == bundled["law"]
+    assert ctrl.bank[0].gains.link_damping == bundled["knee.gains.link_damping"]
