@@ -26,6 +26,8 @@ setup(
     entry_points={
         "console_scripts": [
             "cdamp = compliant_damping.cli:main",
+            "damping_controller = compliant_damping.nodes.controller_node:main",
+            "simulated_joint = compliant_damping.nodes.simulated_joint_node:main",
         ],
     },
 )
