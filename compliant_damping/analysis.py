@@ -157,7 +157,7 @@ def _equilibrium(f, plant: JointParams, law: Law, q_d: float) -> np.ndarray:
     theta = q_d + plant.gravity_torque * math.sin(q_d + plant.gravity_offset) / plant.spring_stiffness
     guess = np.array([q_d, 0.0, theta, 0.0, *law.initial_state(JointSample(q_d, 0.0, theta, 0.0))])
     sol = optimize.root(f, guess, method="hybr", tol=1e-13)
-    if not sol.success or np.max(np.abs(f(sol.x))) > 1e-8:
+    if not np.max(np.abs(f(sol.x))) <= 1e-8:  # judged by the residual: "no progress" at 1e-14 is fine
         raise AnalysisError(f"no closed-loop equilibrium found near q_d = {q_d} rad ({sol.message})")
     return sol.x
 
