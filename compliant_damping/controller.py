@@ -54,9 +54,9 @@ class JointController:
         if self.safety.fault is None and s.is_finite() and not all(math.isfinite(v) for v in ref):
             self.safety.trip("non-finite reference")  # laws cannot take it (math.sin(inf) raises)
         if self.safety.fault is None and s.is_finite():
-            self._apply_ramp(s, ref, t)
+            gains = self._apply_ramp(t)
             if self._runner is None:
-                self._runner = LawRunner(make_law(self.law_name, self.model, self.gains), s, ref,
+                self._runner = LawRunner(make_law(self.law_name, self.model, gains), s, ref,
                                          previous_torque=self.safety.last_torque)
             tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
         elif self.safety.fault is not None:
@@ -103,14 +103,18 @@ class JointController:
         """New safety limits from the next tick (a lowered torque limit applies at once)."""
         self.safety.limits = limits
 
-    def _apply_ramp(self, s, ref, t):
-        if self._ramp is None or self._runner is None:
-            return
+    def _apply_ramp(self, t) -> Gains:
+        """Gains in effect at ``t`` (s); a running law follows the ramp, a new one starts on it."""
+        if self._ramp is None:
+            return self.gains
         start, t0, duration = self._ramp
         w = min(max((t - t0) / duration, 0.0), 1.0)
-        self._rebuild(blend_gains(start, self.gains, w, self.model.motor_inertia))
+        gains = blend_gains(start, self.gains, w, self.model.motor_inertia)
+        if self._runner is not None:
+            self._rebuild(gains)
         if w >= 1.0:
             self._ramp = None
+        return gains
 
     def _rebuild(self, gains: Gains):
         """Swap the running law's gains, keeping its states when their number is unchanged."""
