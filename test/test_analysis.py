@@ -119,3 +119,20 @@ def test_dominant_and_least_damped_modes_are_defined_as_documented():
 def test_equilibrium_outside_stops_is_refused():
     with pytest.raises(analysis.AnalysisError, match="q_d"):
         analysis.analyze(PLANT, make_law("motor_pd", JOINT.model, G), PLANT.stop_upper + 0.1)
+
+
+def test_virtual_mass_and_shaped_motor_inertia_match_python_control():
+    """Second-order damper m_v x'' + D_v x' = k_v (q - x) with motor inertia shaping B_d: target loop
+    (design notes) M q'' = k (eta - q) - k_v (q - x) - g' q, B_d eta'' = k (q - eta) - K eta - D eta',
+    as a python-control ss with states [q, q', eta, eta', x, x']; poles agree to 1e-6 relative."""
+    m_v, b_d = 0.02, 0.08
+    gains = dataclasses.replace(G, virtual_mass=m_v, motor_inertia_target=b_d)
+    got = analysis.analyze(PLANT, make_law("decoupled_damper", JOINT.model, gains), Q_D).poles
+    a = np.array([[0, 1, 0, 0, 0, 0],
+                  [-(K_S + G1 + K_V) / M, 0, K_S / M, 0, K_V / M, 0],
+                  [0, 0, 0, 1, 0, 0],
+                  [K_S / b_d, 0, -(K_S + K) / b_d, -D / b_d, 0, 0],
+                  [0, 0, 0, 0, 0, 1],
+                  [K_V / m_v, 0, 0, 0, -K_V / m_v, -D_L / m_v]])
+    sys_ = control.ss(a, np.zeros((6, 1)), np.eye(6)[:1], np.zeros((1, 1)))
+    assert _max_rel_error(got, control.poles(sys_)) < 1e-6
