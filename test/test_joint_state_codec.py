@@ -1,0 +1,92 @@
+"""Pure parts of the ROS shell: joint-state decoding, reference schedule, tick timing, plant stepping."""
+import math
+
+import numpy as np
+import pytest
+
+from compliant_damping import config, model
+from compliant_damping.joint_state_codec import (ReferenceSchedule, StateDecoder, TickClock, encode_states,
+                                                 pick_values)
+from compliant_damping.plant import Plant
+from compliant_damping.sample import JointSample
+
+CTRL, SIM = config.load(config.bundled())
+NAMES = ["knee", "knee_motor"]
+
+
+def test_decoder_reads_link_and_motor_entries_in_any_order():
+    dec = StateDecoder(CTRL.joints, spring_torque_from_effort=True)
+    samples = dec.decode(["knee_motor", "knee"], [0.3, 0.2], [1.5, 1.0], [7.0, 6.0])
+    assert samples == [JointSample(0.2, 1.0, 0.3, 1.5, 6.0)] and dec.rejected == 0
+
+
+@pytest.mark.parametrize("fields, said", [
+    ((NAMES, [0.0], [0.0, 0.0], []), "lengths"),
+    ((NAMES, [0.0, 0.0], [0.0, 0.0], [0.0]), "lengths"),
+    ((["knee"], [0.0], [0.0], []), "knee_motor"),
+    ((["knee", "knee"], [0.0, 0.0], [0.0, 0.0], []), "repeated"),
+    ((NAMES, [math.nan, 0.0], [0.0, 0.0], []), "non-finite"),
+    ((NAMES, [0.0, 0.0], [0.0, -math.inf], []), "non-finite"),
+])
+def test_decoder_rejects_with_a_reason_and_counts(fields, said):
+    dec = StateDecoder(CTRL.joints, spring_torque_from_effort=False)
+    reason = dec.decode(*fields)
+    assert isinstance(reason, str) and said in reason and dec.rejected == 1 and dec.last_reason == reason
+
+
+def test_effort_source_needs_a_finite_effort():
+    dec = StateDecoder(CTRL.joints, spring_torque_from_effort=True)
+    assert "no effort" in dec.decode(NAMES, [0.0, 0.0], [0.0, 0.0], [])
+    assert "non-finite" in dec.decode(NAMES, [0.0, 0.0], [0.0, 0.0], [math.nan, 0.0])
+    plain = StateDecoder(CTRL.joints, spring_torque_from_effort=False)
+    assert math.isnan(plain.decode(NAMES, [0.0, 0.0], [0.0, 0.0], [math.nan, 0.0])[0].tau_s)
+
+
+def test_encode_then_decode_round_trip():
+    s = JointSample(0.1, -0.2, 0.15, 0.3, 12.0)
+    name, pos, vel, eff = encode_states(["knee"], [s], [4.0])
+    assert StateDecoder(CTRL.joints, True).decode(name, pos, vel, eff) == [s] and eff == [12.0, 4.0]
+
+
+def test_pick_values():
+    assert pick_values(["b", "a"], [2.0, 1.0], ["a", "c"]) == [1.0, None]
+    assert "names" in pick_values(["a"], [], ["a"])
+    assert "non-finite" in pick_values(["a"], [math.inf], ["a"])
+
+
+def test_reference_schedule_applies_each_reference_at_its_stamp():
+    refs = ReferenceSchedule(["knee"])
+    assert refs.add(0.2, ["knee"], [0.5], []) is None and refs.add(0.1, ["knee"], [0.3], [1.0]) is None
+    assert refs.at(0.05) == [None] and len(refs) == 2
+    assert refs.at(0.1) == [(0.3, 1.0, 0.0)]
+    assert refs.at(0.3) == [(0.5, 0.0, 0.0)] and len(refs) == 0
+    assert "no configured joint" in refs.add(0.0, ["hip"], [0.1], [])
+    assert "non-finite" in refs.add(0.0, ["knee"], [math.nan], [])
+
+
+def test_tick_clock_clamps_and_counts_late_ticks():
+    clock = TickClock(1e-3)
+    dts = [clock.interval(t) for t in (0.0, 0.001, 0.0015, 0.0055, 0.0065)]
+    assert dts == pytest.approx([1e-3, 1e-3, 0.5e-3, 2e-3, 1e-3])
+    assert clock.late == 1
+    assert clock.rate() == pytest.approx(4 / 0.0065) and clock.rate() == 0.0
+
+
+def test_plant_impulse_changes_link_momentum_by_the_impulse():
+    # Impulse-momentum theorem: M * delta q' = J, up to the spring and gravity torques during
+    # the one-period pulse (a few per cent here: the link starts at rest in equilibrium).
+    plant = Plant(SIM)
+    impulse, m = 0.01, SIM.joints[0].plant.link_inertia
+    plant.add_impulse(0, impulse, plant.t)
+    plant.advance([model.gravity(plant.params[0], plant.x[0, 0])])
+    assert plant.x[0, 1] == pytest.approx(impulse / m, rel=0.02)
+    assert len(plant.external) == 0  # the pulse is over
+
+
+def test_plant_held_torque_starts_at_its_time_and_is_replaced():
+    plant = Plant(SIM)
+    plant.hold_torque(0, 1.0, 0.002)
+    plant.advance([0.0])
+    assert plant.x[0, 1] == 0.0  # not yet
+    plant.hold_torque(0, -1.0, 0.004)
+    assert np.array_equal(plant.external[:, 2], [0.004, math.inf])
