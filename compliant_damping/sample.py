@@ -21,4 +21,5 @@ class JointSample(NamedTuple):
 
     def is_finite(self) -> bool:
         """True when the four kinematic readings are finite (tau_s may be NaN: not measured)."""
-        return all(math.isfinite(v) for v in self[:4])
+        isfinite = math.isfinite  # spelled out: called several times per control tick
+        return isfinite(self.q) and isfinite(self.dq) and isfinite(self.theta) and isfinite(self.dtheta)

@@ -32,9 +32,13 @@ class SensorChannel:
         self.params = params
         self.rng = rng
         self._queue: deque = deque(maxlen=int(round(params.delay / period)) + 1)
+        self.ideal = self._queue.maxlen == 1 and not (params.position_noise or params.velocity_noise
+                                                       or params.torque_noise or params.encoder_resolution)
 
     def read(self, q: float, dq: float, theta: float, dtheta: float, tau_s: float) -> JointSample:
         """Reading available now for the true state given (the oldest one still in the delay line)."""
+        if self.ideal:  # exact and undelayed: skip the pipeline
+            return JointSample(q, dq, theta, dtheta, tau_s)
         p = self.params
         if p.position_noise > 0.0:
             q, theta = q + self.rng.normal(0.0, p.position_noise), theta + self.rng.normal(0.0, p.position_noise)

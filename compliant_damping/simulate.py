@@ -51,25 +51,49 @@ def simulate(sim_joints, controllers, scenario, duration=None, control_dt=1e-3, 
     sensors = [SensorChannel(j.sensor, control_dt, rng) for j in sim_joints]
     x = scenario.initial.astype(float).copy()
     n_ticks, n = int(round(duration / control_dt)), len(sim_joints)
-    out = {k: np.empty((n_ticks, n)) for k in ("q", "dq", "theta", "dtheta", "tau_m", "tau_s")}
+    states, tau_m, tau_s_out = np.empty((n_ticks, n, 4)), np.empty((n_ticks, n)), np.empty((n_ticks, n))
     tau = np.zeros(n)
     h = control_dt / substeps
+    # The tick loop works on plain Python floats, with per-joint rows and bound methods looked up once.
+    joints = list(zip(params.tolist(), [s.read for s in sensors], [c.step for c in controllers],
+                      [r.sample for r in scenario.references]))
+    spring_torque, advance, external = model.spring_torque, model.advance, scenario.external
     start = time.perf_counter()
     for i in range(n_ticks):
         t = i * control_dt
-        for j in range(n):
-            q, dq, th, dth = x[j]
-            tau_s = model.spring_torque(params[j], q, dq, th, dth)
-            reading = sensors[j].read(q, dq, th, dth, tau_s)
-            tau[j] = controllers[j].step(reading, scenario.references[j].sample(t), t, control_dt)
-            out["tau_s"][i, j] = tau_s
-        out["q"][i], out["dq"][i], out["theta"][i], out["dtheta"][i] = x.T
-        out["tau_m"][i] = model.advance(x, params, tau, scenario.external, t, h, substeps)
+        states[i] = x
+        for j, ((q, dq, th, dth), (p, read, step, reference)) in enumerate(zip(x.tolist(), joints)):
+            tau_s = spring_torque(p, q, dq, th, dth)
+            tau[j] = step(read(q, dq, th, dth, tau_s), reference(t), t, control_dt)
+            tau_s_out[i, j] = tau_s
+        tau_m[i] = advance(x, params, tau, external, t, h, substeps)
         if progress is not None and i % 1000 == 0:
             progress(i)
-    return SimResult([j.name for j in sim_joints], np.arange(n_ticks) * control_dt,
-                     faults=[c.fault for c in controllers], control_dt=control_dt,
-                     wall_time=time.perf_counter() - start, **out)
+    wall_time = time.perf_counter() - start
+    q, dq, theta, dtheta = (np.ascontiguousarray(states[:, :, c]) for c in range(4))
+    return SimResult([j.name for j in sim_joints], np.arange(n_ticks) * control_dt, q, dq, theta, dtheta,
+                     tau_m, tau_s_out, faults=[c.fault for c in controllers], control_dt=control_dt,
+                     wall_time=wall_time)
+
+
+def run_metrics(q, theta, tau_m, tick) -> dict:
+    """Metrics every run has, simulated or recorded, for one joint (SI units).
+
+    q, theta: link and motor positions (rad) at the state samples; tau_m: motor torque
+    commands (N m); tick: time between successive commands (s), a number or one per interval
+    (intervals that are not positive are skipped). The torque rate is |delta tau_m| / tick.
+    """
+    tick = np.broadcast_to(np.asarray(tick, dtype=float), (max(len(tau_m) - 1, 0),))
+    ok = tick > 0.0
+    rate = np.abs(np.diff(tau_m))[ok] / tick[ok]
+    return {
+        "peak_abs_torque": float(np.max(np.abs(tau_m))),
+        "peak_torque_rate": float(np.max(rate)) if len(rate) else 0.0,
+        "max_link_position": float(np.max(q)),
+        "min_link_position": float(np.min(q)),
+        "final_link_position": float(q[-1]),
+        "max_deflection": float(np.max(np.abs(np.asarray(theta) - np.asarray(q)))),
+    }
 
 
 def metrics(result: SimResult, scenario) -> dict:
@@ -80,17 +104,9 @@ def metrics(result: SimResult, scenario) -> dict:
     """
     out = {}
     for j, name in enumerate(result.joint_names):
-        q, tau = result.q[:, j], result.tau_m[:, j]
-        rate = np.abs(np.diff(tau)) / result.control_dt if len(tau) > 1 else np.zeros(1)
-        entry = {
-            "peak_abs_torque": float(np.max(np.abs(tau))),
-            "peak_torque_rate": float(np.max(rate)),
-            "max_link_position": float(np.max(q)),
-            "min_link_position": float(np.min(q)),
-            "final_link_position": float(q[-1]),
-            "overshoot": None,
-            "settling_time_2pct": None,
-        }
+        q = result.q[:, j]
+        entry = {**run_metrics(q, result.theta[:, j], result.tau_m[:, j], result.control_dt),
+                 "overshoot": None, "settling_time_2pct": None}
         if scenario.step is not None:
             t_step, size = scenario.step
             after = result.t >= t_step
