@@ -178,6 +178,35 @@ def _plot_tune(path, points, best, min_zeta, limits):
     plt.close(fig)
 
 
+REPORT_COLUMNS = (("peak_abs_torque", "peak |tau_m| N m", ".3f"), ("peak_torque_rate", "peak rate N m/s", ".1f"),
+                  ("min_link_position", "q min rad", ".4f"), ("max_link_position", "q max rad", ".4f"),
+                  ("max_deflection", "max |theta-q| rad", ".4f"))
+
+
+def cmd_report(args) -> int:
+    """Metrics table, report.json and a PNG per run for recorded runs (CSV or rosbag2)."""
+    from pathlib import Path
+
+    from . import plots, recordings
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    report, stems = {}, set()
+    print(f"{'run':<24}{'joint':<12}" + "".join(f"{h:>19}" for _, h, _ in REPORT_COLUMNS))
+    for run in args.runs:
+        rec = recordings.read(run)
+        stem = Path(run).stem
+        while stem in stems:
+            stem += "_"
+        stems.add(stem)
+        report[stem] = {"source": str(run), "plot": str(plots.plot_run(rec, out / f"{stem}.png")),
+                        "joints": recordings.metrics(rec)}
+        for joint, m in report[stem]["joints"].items():
+            print(f"{stem:<24}{joint:<12}" + "".join(f"{m[k]:>19{fmt}}" for k, _, fmt in REPORT_COLUMNS))
+    (out / "report.json").write_text(json.dumps(report, indent=2))
+    print(f"wrote {out / 'report.json'} and {len(report)} plot(s) in {out}")
+    return 0
+
+
 def parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="cdamp", description=__doc__)
     sub = p.add_subparsers(dest="command", required=True)
@@ -217,6 +246,10 @@ def parser() -> argparse.ArgumentParser:
     t.add_argument("--plot", help="write a PNG of the trade-off here")
     t.add_argument("--json", action="store_true", help="print the sweep as JSON")
     t.set_defaults(run=cmd_tune)
+    r = sub.add_parser("report", help="metrics and plots of recorded runs: simulate --csv files or rosbag2 recordings")
+    r.add_argument("runs", nargs="+", metavar="RUN", help="CSV file, rosbag2 folder or .mcap/.db3 file")
+    r.add_argument("--out", default="results/report", help="folder for report.json and the plots (default results/report)")
+    r.set_defaults(run=cmd_report)
     return p
 
 
