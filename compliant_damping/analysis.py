@@ -76,8 +76,8 @@ class Mode:
     damping_ratio : float
         ``-Re(pole) / |pole|``: 1 for a stable real pole, negative when unstable.
     link_share : float
-        Share of the link position in the mode's shape, ``|v_q| / ||(v_q, v_theta, v_z)||``
-        of its eigenvector's position-like entries (0..1).
+        Share of the link position in the mode's shape, ``|v_q| / ||(v_q, v_theta, v_x)||``
+        over its eigenvector's position entries (x: the damper's position, when the law has one), 0..1.
     """
 
     pole: complex
@@ -210,7 +210,7 @@ def linearize(plant: JointParams, law: Law, q_d: float = 0.0, *, coulomb: bool =
 def modes_of(lin: LinearModel, tol: float = 1e-9) -> tuple:
     """Modes of ``lin`` (one per real pole or conjugate pair), sorted by natural frequency."""
     poles, vecs = np.linalg.eig(lin.a)
-    position_rows = [i for i, nm in enumerate(lin.state_names) if nm not in ("dq", "dtheta")]
+    position_rows = [i for i, nm in enumerate(lin.state_names) if nm in ("q", "theta", "z0")]  # z0: damper x
     modes = []
     for p, v in zip(poles, vecs.T):
         if p.imag < -tol * max(1.0, abs(p)):

@@ -108,7 +108,8 @@ def cmd_analyze(args) -> int:
             "least_damped_mode": res.modes.index(res.least_damped),
             "static_link_stiffness": res.static_link_stiffness}, indent=2))
         return 0
-    print(f"law {ctrl.law}, joint {cj.name}, set point {q_d:g} rad, {'stable' if res.stable else 'UNSTABLE'}")
+    print(f"law {ctrl.law}, joint {cj.name}, set point {q_d:g} rad, {'stable' if res.stable else 'UNSTABLE'} "
+          "(linearised, Coulomb friction off)")
     print(f"  {'mode':<6}{'f_n Hz':>9}{'zeta':>8}{'link share':>12}")
     for i, m in enumerate(res.modes):
         tag = (" dominant" if m is res.dominant else "") + (" least damped" if m is res.least_damped else "")

@@ -136,3 +136,13 @@ def test_virtual_mass_and_shaped_motor_inertia_match_python_control():
                   [K_V / m_v, 0, 0, 0, -K_V / m_v, -D_L / m_v]])
     sys_ = control.ss(a, np.zeros((6, 1)), np.eye(6)[:1], np.zeros((1, 1)))
     assert _max_rel_error(got, control.poles(sys_)) < 1e-6
+
+
+def test_link_admittance_high_frequency_is_the_link_inertia():
+    """Reference: far above every closed-loop mode the link is a free inertia, q/tau = -1/(M w^2)
+    (mass impedance, handbook formula); checked at 2 kHz within 1 %."""
+    res = analysis.analyze(PLANT, make_law("decoupled_damper", JOINT.model, G), Q_D)
+    w = 2.0 * math.pi * 2000.0
+    y = analysis.link_admittance(res.linear, [2000.0])[0]
+    assert y.real == pytest.approx(-1.0 / (M * w * w), rel=0.01)
+    assert abs(y.imag) < 0.01 * abs(y.real)
