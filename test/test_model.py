@@ -44,7 +44,7 @@ def test_two_mass_resonance():
     """Free joint, no losses: deflection rings at sqrt(k (1/M + 1/B)) / 2 pi.
 
     Reference: natural frequency of two masses joined by a spring (free-free
-    two-degree-of-freedom system), e.g. Thomson & Dahme, Theory of Vibration with
+    two-degree-of-freedom system), e.g. Thomson and Dahleh, Theory of Vibration with
     Applications, chapter on two-degree-of-freedom systems (from memory).
     """
     joint = JointParams(link_inertia=0.4, motor_inertia=0.1, spring_stiffness=250.0, coulomb_speed=1.0)
@@ -135,8 +135,9 @@ def test_end_stop_restitution():
     """A free link bouncing on the lower end stop leaves with the restitution of a push-only contact.
 
     References: (a) the closed form e = exp(-zeta pi / sqrt(1 - zeta^2)) of a linear
-    spring-damper that releases at zero penetration (e.g. the Kelvin-Voigt contact
-    model in impact mechanics texts, from memory); here zeta = 0.3 gives e = 0.372.
+    spring-damper (Kelvin-Voigt) contact that releases at zero penetration: the speed
+    ratio of a damped linear oscillator over half a damped period, any vibrations
+    textbook; here zeta = 0.3 gives e = 0.372.
     Our contact only pushes, so it releases earlier, when k p + d p' = 0, and the mass
     keeps more speed: (b) an event-based scipy solve_ivp of that clipped contact gives
     e = 0.451 for these numbers. The production integrator is asserted against (b); (a) is
