@@ -270,3 +270,73 @@ def test_reset_refused_while_reading_violates_a_limit():
 
 def test_reset_refused_before_any_reading():
     assert SafetyFilter(LIM).reset() == "no joint state received yet"
+
+
+# ---- joint-state decoding (joint_state_codec): malformed messages never reach the controller ---------
+
+from types import SimpleNamespace  # noqa: E402
+
+from compliant_damping.joint_state_codec import StateDecoder  # noqa: E402
+
+CODEC_JOINTS = [SimpleNamespace(link_state="knee", motor_state="knee_motor"),
+                SimpleNamespace(link_state="hip", motor_state="hip_motor")]
+POOL = ["knee", "knee_motor", "hip", "hip_motor", "aux"]
+
+
+@st.composite
+def messages(draw):
+    """JointState fields: names from POOL (maybe missing or repeated), arrays of maybe wrong lengths."""
+    if draw(st.booleans()):  # well formed, finite, but for at most one hostile value
+        names = draw(st.permutations(POOL))
+        n = len(names)
+        fields = [draw(st.lists(st.floats(-0.5, 0.5), min_size=size, max_size=size))
+                  for size in (n, n, draw(st.sampled_from([n, 0])))]
+        if draw(st.booleans()):
+            f = draw(st.sampled_from([f for f in fields if f]))
+            f[draw(st.integers(0, n - 1))] = draw(anything)
+        return (names, *fields)
+    names = draw(st.lists(st.sampled_from(POOL), min_size=0, max_size=6))
+    n = len(names)
+
+    def array(allow_empty):
+        size = draw(st.sampled_from([n, n, n, max(n - 1, 0), n + 1] + ([0] if allow_empty else [])))
+        return draw(st.lists(mostly_finite, min_size=size, max_size=size))
+    return names, array(False), array(False), array(True)
+
+
+def decoded_by_hand(names, pos, vel, eff, from_effort):
+    """The interface notes' rule: equal lengths (effort may be empty unless used), unique names,
+    every configured entry present and finite; samples in configured order. None: reject."""
+    n = len(names)
+    if len(pos) != n or len(vel) != n or len(eff) not in (0, n) or len(set(names)) != n:
+        return None
+    if from_effort and not eff:
+        return None
+    out = []
+    for j in CODEC_JOINTS:
+        if j.link_state not in names or j.motor_state not in names:
+            return None
+        i, m = names.index(j.link_state), names.index(j.motor_state)
+        values = [pos[i], vel[i], pos[m], vel[m]] + ([eff[i]] if from_effort else [])
+        if not all(math.isfinite(v) for v in values):
+            return None
+        out.append(JointSample(*values[:4], values[4] if from_effort else NAN))
+    return out
+
+
+@PROPERTY
+@given(messages(), st.booleans())
+def test_decoder_rejects_malformed_and_non_finite_messages(msg, from_effort):
+    """Mismatched lengths, missing or repeated names, non-finite values: a reason, never samples;
+    accepted samples equal the fields picked by name, and give a finite command."""
+    dec = StateDecoder(CODEC_JOINTS, from_effort)
+    got = dec.decode(*msg)
+    expected = decoded_by_hand(*msg, from_effort)
+    if expected is None:
+        assert isinstance(got, str) and got and dec.last_reason == got and dec.rejected == 1
+        return
+    assert [tuple(s[:4]) for s in got] == [tuple(s[:4]) for s in expected]
+    assert all((math.isnan(a.tau_s) and math.isnan(b.tau_s)) or a.tau_s == b.tau_s for a, b in zip(got, expected))
+    for s in got:
+        c = JointController("motor_pd", MODEL, Gains(motor_stiffness=50.0), Limits())
+        assert math.isfinite(c.step(s, (0.0, 0.0, 0.0), 0.0, 1e-3))
