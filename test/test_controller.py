@@ -73,8 +73,18 @@ SWITCHES = [
 
 @pytest.mark.parametrize("scenario, first, then", SWITCHES)
 def test_law_switch_while_moving_is_bumpless(scenario, first, then):
+    check_switches(scenario, first, then, GAINS)
+
+
+def test_law_switch_to_second_order_damper_is_bumpless():
+    """Same with a virtual damper mass: two law states (x, x'), the first one solved for the torque."""
+    check_switches("end_stop_impact", "motor_pd", ["decoupled_damper", "link_damping", "decoupled_impedance", "motor_pd"],
+                   replace(GAINS, virtual_mass=0.02))
+
+
+def check_switches(scenario, first, then, gains):
     times = [0.13, 0.27, 0.41, 0.55] if scenario == "setpoint_step" else [0.2, 0.3, 0.38, 0.47]
-    rec = run(scenario, first, [(t, switch(law)) for t, law in zip(times, then)], 0.6)
+    rec = run(scenario, first, [(t, switch(law)) for t, law in zip(times, then)], 0.6, gains)
     budget = JOINT.limits.torque_rate * DT
     steps = [abs(b - a) for a, b in zip(rec.cmd, rec.cmd[1:])]
     assert max(steps) <= budget * (1 + 1e-12)  # the filter's slew contract, every tick
