@@ -32,6 +32,7 @@ class SensorChannel:
         self.params = params
         self.rng = rng
         self._queue: deque = deque(maxlen=int(round(params.delay / period)) + 1)
+        # ideal: readings are the true state (no noise, quantisation or delay); fixed with params
         self.ideal = self._queue.maxlen == 1 and not (params.position_noise or params.velocity_noise
                                                        or params.torque_noise or params.encoder_resolution)
 
