@@ -1,0 +1,115 @@
+"""Launch test of launch/simulated_joint.launch.py: simulated knee + controller, over ROS.
+
+Started with namespace:=<unique> and law:=link_damping (both launch arguments must take
+effect). The test checks that joint states and effort commands flow, that the law argument
+reached the controller, then steps the link reference from 0 to 0.1 rad and waits for the
+joint to come to rest there. Reference for the rest state: statics of a pendulum load on a
+spring (handbook statics): at rest the spring torque k (theta - q) and the motor torque both
+equal the gravity torque m g0 l sin(q) = 2.0 sin(0.1) N m of the bundled knee.
+
+Runs as a launch_testing test (pytest plugin, or ``launch_test FILE``) with the launch packages
+and the package's executables on the ament index (colcon workspace). Skipped without them.
+"""
+import math
+import os
+import time
+import unittest
+import uuid
+from pathlib import Path
+
+import pytest
+
+pytest.importorskip("launch_testing", reason="launch tests need the ROS 2 launch packages (launch_testing)")
+pytest.importorskip("launch_ros", reason="launch tests need the ROS 2 launch packages (launch_ros)")
+
+import launch  # noqa: E402
+import launch_testing.actions  # noqa: E402
+import launch_testing.asserts  # noqa: E402
+import rclpy  # noqa: E402
+from launch.launch_description_sources import PythonLaunchDescriptionSource  # noqa: E402
+from rcl_interfaces.srv import GetParameters  # noqa: E402
+from rclpy.qos import QoSProfile, qos_profile_sensor_data  # noqa: E402
+from sensor_msgs.msg import JointState  # noqa: E402
+
+LAUNCH_FILE = Path(__file__).resolve().parent.parent / "launch" / "simulated_joint.launch.py"
+NAMESPACE = f"launch_test_{uuid.uuid4().hex[:8]}"
+GRAVITY_TORQUE = 2.0  # N m, knee.gravity_torque of config/one_joint.yaml
+STEP = 0.1            # rad
+
+
+@pytest.mark.launch
+@pytest.mark.launch_test
+def generate_test_description():
+    return launch.LaunchDescription([
+        launch.actions.IncludeLaunchDescription(
+            PythonLaunchDescriptionSource(str(LAUNCH_FILE)),
+            launch_arguments={"namespace": NAMESPACE, "law": "link_damping"}.items()),
+        launch_testing.actions.ReadyToTest(),
+    ])
+
+
+def spin_until(node, done, timeout):
+    """Spin ``node`` until ``done()`` or ``timeout`` s of wall time; returns done()."""
+    end = time.monotonic() + timeout
+    while time.monotonic() < end and not done():
+        rclpy.spin_once(node, timeout_sec=0.05)
+    return done()
+
+
+class TestSimulatedJointLaunch(unittest.TestCase):
+    @classmethod
+    def setUpClass(cls):
+        assert os.environ.get("ROS_AUTOMATIC_DISCOVERY_RANGE") == "LOCALHOST"  # network rule
+        rclpy.init()
+        cls.node = rclpy.create_node("launch_test_probe", namespace=NAMESPACE)
+        cls.states, cls.commands = [], []
+        cls.node.create_subscription(JointState, "joint_states", cls.states.append, qos_profile_sensor_data)
+        cls.node.create_subscription(JointState, "motor_effort", cls.commands.append, qos_profile_sensor_data)
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.node.destroy_node()
+        rclpy.shutdown()
+
+    def test_1_states_and_commands_flow(self):
+        self.assertTrue(spin_until(self.node, lambda: len(self.states) > 200 and len(self.commands) > 200, 30.0),
+                        f"{len(self.states)} joint states, {len(self.commands)} commands in {NAMESPACE}")
+        self.assertEqual(list(self.states[-1].name), ["knee", "knee_motor"])
+        self.assertEqual(list(self.commands[-1].name), ["knee_motor"])
+
+    def test_2_law_argument_applied(self):
+        client = self.node.create_client(GetParameters, "damping_controller/get_parameters")
+        self.assertTrue(client.wait_for_service(timeout_sec=10.0))
+        future = client.call_async(GetParameters.Request(names=["law"]))
+        self.assertTrue(spin_until(self.node, future.done, 10.0))
+        self.assertEqual(future.result().values[0].string_value, "link_damping")
+
+    def test_3_comes_to_rest_at_a_new_reference(self):
+        pub = self.node.create_publisher(JointState, "link_reference", QoSProfile(depth=10))
+        self.assertTrue(spin_until(self.node, lambda: pub.get_subscription_count() > 0, 10.0))
+        self.states.clear()
+        # Wait for 2.5 s of simulated time (one joint state per 1 ms period; settling takes ~0.4 s
+        # offline): counted in states, not wall time, so a loaded machine only makes it slower.
+        # The set point is sent again every 0.2 s so that a late discovery cannot lose it.
+        deadline = time.monotonic() + 45.0
+        while len(self.states) < 2500:
+            self.assertLess(time.monotonic(), deadline, f"only {len(self.states)} joint states in 45 s")
+            pub.publish(JointState(name=["knee"], position=[STEP], velocity=[0.0]))  # stamp zero: at once
+            spin_until(self.node, lambda: False, 0.2)
+        self.states.clear()
+        self.commands.clear()
+        self.assertTrue(spin_until(self.node, lambda: len(self.states) > 100 and len(self.commands) > 100, 10.0))
+        q = [m.position[0] for m in self.states[-100:]]
+        spring = [m.effort[0] for m in self.states[-100:]]
+        tau = [m.effort[0] for m in self.commands[-100:]]
+        expected = GRAVITY_TORQUE * math.sin(STEP)  # 0.1997 N m: pendulum statics
+        self.assertAlmostEqual(sum(q) / len(q), STEP, delta=0.005)
+        self.assertLess(max(q) - min(q), 0.002)  # at rest, not ringing
+        self.assertAlmostEqual(sum(spring) / len(spring), expected, delta=0.03)
+        self.assertAlmostEqual(sum(tau) / len(tau), expected, delta=0.05)  # motor Coulomb friction 0.2 N m
+
+
+@launch_testing.post_shutdown_test()
+class TestShutdown(unittest.TestCase):
+    def test_nodes_exit_cleanly(self, proc_info):
+        launch_testing.asserts.assertExitCodes(proc_info)
