@@ -1,10 +1,13 @@
 """In-process ROS harness: both nodes and a probe node in one executor, on a fresh rclpy Context.
 
 The controller runs on sim time; the simulated joint in lock step, so a run is deterministic.
-Every wait is ``spin_until`` with a deadline.
+Every wait is ``spin_until`` with a deadline. All nodes live in a namespace of their own, with
+/clock and /diagnostics remapped into it, so runs sharing the domain do not hear each other.
 """
 from __future__ import annotations
 
+import itertools
+import os
 import time
 
 import pytest
@@ -24,6 +27,14 @@ from compliant_damping.nodes.controller_node import ControllerNode
 from compliant_damping.nodes.simulated_joint_node import SimulatedJointNode
 
 DOC = config.read(config.bundled())
+_RUNS = itertools.count()
+
+
+def isolation() -> dict:
+    """Node keyword arguments: a fresh namespace, /clock and /diagnostics remapped into it."""
+    ns = f"/cdamp_test_{os.getpid()}_{next(_RUNS)}"
+    return {"namespace": ns, "cli_args": ["--ros-args", "-r", f"/clock:={ns}/clock",
+                                          "-r", f"/diagnostics:={ns}/diagnostics"]}
 
 
 def stamp(t: float) -> Time:
@@ -38,8 +49,8 @@ def seconds(msg_stamp) -> float:
 class Probe:
     """Test node: records motor_effort, joint_states and /diagnostics; publishes what a test needs."""
 
-    def __init__(self, context):
-        self.node = rclpy.create_node("test_probe", context=context)
+    def __init__(self, context, scope: dict):
+        self.node = rclpy.create_node("test_probe", context=context, **scope)
         reliable = QoSProfile(depth=100)
         self.efforts, self.states, self.diagnostics = [], [], []
         self.node.create_subscription(JointState, "motor_effort", self.efforts.append, reliable)
@@ -51,7 +62,7 @@ class Probe:
 
     def trigger(self, harness, service: str):
         """Call a std_srvs/Trigger service of the controller; returns the response."""
-        client = self.node.create_client(Trigger, f"/{config.CONTROLLER_NODE}/{service}")
+        client = self.node.create_client(Trigger, f"{self.node.get_namespace()}/{config.CONTROLLER_NODE}/{service}")
         assert harness.spin_until(client.service_is_ready, 5.0), f"{service} not available"
         future = client.call_async(Trigger.Request())
         assert harness.spin_until(future.done, 5.0), f"{service} gave no answer"
@@ -64,7 +75,8 @@ class Harness:
         self.context = context
         self.executor = SingleThreadedExecutor(context=context)
         self.nodes = []
-        self.probe = Probe(context)
+        self.scope = isolation()
+        self.probe = Probe(context, self.scope)
         self._add(self.probe.node)
 
     def _add(self, node):
@@ -75,11 +87,11 @@ class Harness:
     def controller(self, **overrides) -> ControllerNode:
         """Controller with the bundled parameters, ``overrides`` (dotted keys via '__' in names), on sim time."""
         values = {**config.node_parameters(DOC, config.CONTROLLER_NODE), **_dotted(overrides), "use_sim_time": True}
-        return self._add(ControllerNode(context=self.context, parameter_overrides=_params(values)))
+        return self._add(ControllerNode(context=self.context, parameter_overrides=_params(values), **self.scope))
 
     def simulated_joint(self, **overrides) -> SimulatedJointNode:
         values = {**config.node_parameters(DOC, config.SIM_NODE), "lock_step": True, **_dotted(overrides)}
-        return self._add(SimulatedJointNode(context=self.context, parameter_overrides=_params(values)))
+        return self._add(SimulatedJointNode(context=self.context, parameter_overrides=_params(values), **self.scope))
 
     def spin_until(self, condition, timeout: float = 10.0) -> bool:
         deadline = time.monotonic() + timeout

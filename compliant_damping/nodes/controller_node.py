@@ -7,12 +7,12 @@ Topics (relative names):
   from successive header stamps (arrival times when unstamped), clamped (joint_state_codec).
   A message that repeats the stamp already answered gets the same command again.
 * ``link_reference`` in (sensor_msgs/JointState: position rad, velocity rad/s per joint name;
-  reliable, keep last 100). ``header.stamp`` is when it takes effect (zero: at once), so a
+  reliable, keep last 1000). ``header.stamp`` is when it takes effect (zero: at once), so a
   scenario can be streamed ahead. Without one, the reference holds the link position measured
   on the first tick after activation.
 * ``motor_effort`` out (sensor_msgs/JointState: command names, effort N m; header.stamp = the
-  stamp of the joint state answered), ``motor_effort_array`` (std_msgs/Float64MultiArray in
-  joint_names order, with array_output), ``/diagnostics`` (2 Hz, one status per joint).
+  stamp of the joint state answered; reliable, keep last 1000 so a slow recorder loses nothing),
+  ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output), ``/diagnostics`` (2 Hz, one status per joint).
 
 Services (std_srvs/Trigger): ``~/stop`` (safe mode now), ``~/reset_fault`` (refuses with the reason).
 
@@ -77,7 +77,7 @@ class ControllerNode(LifecycleNode):
         self.ticks = codec.TickClock(1.0 / s.control_rate)
         self.refs = codec.ReferenceSchedule(s.joint_names)
         self._answered, self._last_command = 0, None
-        self._pub = self.create_publisher(JointState, "motor_effort", 10)
+        self._pub = self.create_publisher(JointState, "motor_effort", 1000)
         self._pub_array = (self.create_publisher(Float64MultiArray, "motor_effort_array", 10)
                            if s.array_output else None)
         self._pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
@@ -85,7 +85,7 @@ class ControllerNode(LifecycleNode):
                           self.create_subscription(JointState, "joint_states", self._on_state,
                                                    qos_profile_sensor_data),
                           self.create_subscription(JointState, "link_reference", self._on_reference,
-                                                   QoSProfile(depth=100)),
+                                                   QoSProfile(depth=1000)),
                           self.create_timer(self.ticks.period, self._on_watchdog),
                           self.create_timer(0.5, self._on_diagnostics),
                           self.create_service(Trigger, "~/stop", self._on_stop),

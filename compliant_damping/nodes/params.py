@@ -5,6 +5,7 @@ so the descriptors allow any type; only ``joint_names`` is typed and read-only.
 from __future__ import annotations
 
 from rcl_interfaces.msg import ParameterDescriptor, SetParametersResult
+from rclpy.exceptions import ParameterUninitializedException
 from rclpy.parameter import Parameter
 
 from .. import config
@@ -13,9 +14,8 @@ from .. import config
 def declare(node, node_name: str) -> list:
     """Declare every key of ``node_name`` (joint_names first); returns the dotted keys."""
     doc = next(s.description for s in config.parameter_specs(node_name, []) if s.key == "joint_names")
-    node.declare_parameter("joint_names", Parameter.Type.STRING_ARRAY,
-                           ParameterDescriptor(description=doc, read_only=True))
-    names = node.get_parameter("joint_names").value or []
+    names = node.declare_parameter("joint_names", Parameter.Type.STRING_ARRAY,
+                                   ParameterDescriptor(description=doc, read_only=True)).value or []
     keys = ["joint_names"]
     for spec in config.parameter_specs(node_name, names):
         if spec.key == "joint_names":
@@ -30,12 +30,19 @@ def declare(node, node_name: str) -> list:
 def values(node, keys, changes=()) -> dict:
     """Flat parameters as config reads them: current values of ``keys`` (unset ones left out), then ``changes``."""
     out = {}
-    for p in [*node.get_parameters(keys), *changes]:
+    for p in [*(_get(node, k) for k in keys), *changes]:
         if p.type_ == Parameter.Type.NOT_SET:
             out.pop(p.name, None)
         else:
             out[p.name] = list(p.value) if p.type_ == Parameter.Type.STRING_ARRAY else p.value
     return out
+
+
+def _get(node, key):
+    try:
+        return node.get_parameter(key)
+    except ParameterUninitializedException:  # joint_names (typed) not given
+        return Parameter(key, Parameter.Type.NOT_SET, None)
 
 
 def changed(node, keys, params) -> dict:

@@ -24,7 +24,8 @@ Modes:
   sensor-data QoS (best effort, keep last 5).
 * lock step (``lock_step: true``): sim time starts at 0; the first state and /clock go out at
   start; each ``motor_effort`` whose header.stamp equals the last state's stamp advances exactly
-  one period (other commands are ignored) and /clock and the new state go out. Reliable QoS.
+  one period (other commands are ignored) and /clock and the new state go out. Reliable QoS,
+  keep last 1000, so a slower recorder loses nothing.
   When no such command comes for 0.2 s of wall time, the last state is sent again with its
   stamp unchanged, so a late-starting or late-activated controller picks the loop up.
 """
@@ -68,7 +69,7 @@ class SimulatedJointNode(Node):
         self._plant_keys = {f"{n}.{f.name}" for n in names for f in fields(JointParams)}
         self._period_ns = round(1e9 * self.plant.period)
         lock = self.setup.lock_step
-        qos = QoSProfile(depth=10) if lock else qos_profile_sensor_data
+        qos = QoSProfile(depth=1000) if lock else qos_profile_sensor_data  # deep: recorders may lag
         self._pub = self.create_publisher(JointState, "joint_states", qos)
         self.create_subscription(JointState, "motor_effort", self._on_command, qos)
         self.create_subscription(JointState, "external_torque", self._on_external_torque, 10)
