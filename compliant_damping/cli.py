@@ -53,18 +53,15 @@ def cmd_simulate(args) -> int:
 
 
 def cmd_demo(args) -> int:
-    """End-stop impact on the bundled joint with three laws, offline; prints a comparison table."""
-    rows = []
-    for law in ("motor_pd", "link_damping", "decoupled_damper"):
-        ctrl, sim = _load(argparse.Namespace(config=args.config, law=law))
-        scenario = scenarios.make("end_stop_impact", sim.joints)
-        result = simulate.simulate(sim.joints, controller.bank(ctrl), scenario,
-                                   control_dt=1.0 / ctrl.control_rate, substeps=sim.substeps)
-        m = next(iter(simulate.metrics(result, scenario).values()))
-        rows.append((law, m["peak_abs_torque"], m["peak_torque_rate"], m["max_link_position"]))
-    print(f"{'law':<18}{'peak |tau| N m':>16}{'peak rate N m/s':>18}{'max q rad':>11}")
-    for law, tau, rate, qmax in rows:
-        print(f"{law:<18}{tau:>16.2f}{rate:>18.0f}{qmax:>11.4f}")
+    """End-stop impact over ROS (lock step) with three laws, compared with the offline simulator."""
+    from . import demo
+    try:
+        summary = demo.run(args.config, args.out)
+    except demo.DemoError as err:
+        print(f"cdamp demo: {err}", file=sys.stderr)
+        return 1
+    print(demo.table(summary))
+    print(f"wrote {args.out}/summary.json and {summary['plot']} in {summary['wall_time']:.1f} s")
     return 0
 
 
@@ -221,8 +218,9 @@ def parser() -> argparse.ArgumentParser:
     s.add_argument("--csv", help="write the time series to this CSV file")
     s.add_argument("--json", action="store_true", help="print the metrics as JSON")
     s.set_defaults(run=cmd_simulate)
-    d = sub.add_parser("demo", help="end-stop impact on the bundled joint, three laws compared")
+    d = sub.add_parser("demo", help="end-stop impact over ROS with three laws, compared with the offline simulator")
     d.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
+    d.add_argument("--out", default="results/demo", help="folder for summary.json, impact.png and logs")
     d.set_defaults(run=cmd_demo)
     k = sub.add_parser("keys", help="list every parameter key with type, default, unit and meaning")
     k.add_argument("--config", help="parameter file whose joint names to use (default: bundled)")

@@ -1,0 +1,165 @@
+"""``scenario_player``: plays a bundled scenario's link reference to a running controller and
+records the loop, for ``cdamp demo`` (compliant_damping.demo) and by hand.
+
+It configures and activates ``damping_controller`` (lifecycle services), streams the
+reference on ``link_reference`` stamped with the sim time at which each sample applies
+(``--lead`` ticks ahead of the latest joint state, so the run does not depend on message
+timing), records ``joint_states`` and ``motor_effort`` until the sim time reaches the
+scenario's duration, deactivates the controller and writes the series to an ``.npz`` file:
+``t, q, dq, theta, dtheta, tau_s`` (states, one row per tick, columns per joint) and
+``t_cmd, tau_m`` (commands by the stamp of the state they answer). Meant for a lock-step
+simulated joint; exits 1 when the run does not finish within ``--timeout`` s of wall time.
+
+    python -m compliant_damping.nodes.scenario_player --scenario end_stop_impact --out run.npz
+
+Topics and the controller's services are relative to the node's namespace (``-r __ns:=...``).
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+
+import numpy as np
+import rclpy
+import rclpy.utilities
+from builtin_interfaces.msg import Time
+from lifecycle_msgs.msg import Transition
+from lifecycle_msgs.srv import ChangeState
+from rclpy.qos import QoSProfile
+from sensor_msgs.msg import JointState
+
+from .. import config, scenarios
+from .. import joint_state_codec as codec
+
+
+def _ns(stamp) -> int:
+    return stamp.sec * 1_000_000_000 + stamp.nanosec
+
+
+class ScenarioPlayer:
+    def __init__(self, node, scenario, ctrl_setup, sim_setup, lead: int):
+        self.node, self.scenario, self.lead = node, scenario, lead
+        self.joints = ctrl_setup.joint_names
+        self.commands = [j.command for j in ctrl_setup.joints]
+        self.decoder = codec.StateDecoder(ctrl_setup.joints, spring_torque_from_effort=False)
+        self.period_ns = round(1e9 / sim_setup.state_rate)
+        self.states, self.efforts = {}, {}  # tick -> readings / torques
+        self.sent = 0                       # reference ticks published so far
+        self.streaming = False              # set once the controller listens on link_reference
+        qos = QoSProfile(depth=1000)
+        self.reference = node.create_publisher(JointState, "link_reference", qos)
+        node.create_subscription(JointState, "joint_states", self._on_state, qos)
+        node.create_subscription(JointState, "motor_effort", self._on_effort, qos)
+
+    def send_ahead(self, tick: int) -> None:
+        """Publish reference samples up to ``tick + lead``."""
+        while self.sent <= tick + self.lead:
+            t = self.sent * self.period_ns * 1e-9
+            samples = [r.sample(t) for r in self.scenario.references]
+            msg = JointState(name=self.joints, position=[s[0] for s in samples], velocity=[s[1] for s in samples])
+            ns = self.sent * self.period_ns
+            msg.header.stamp = Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
+            self.reference.publish(msg)
+            self.sent += 1
+
+    def _on_state(self, msg):
+        tick = round(_ns(msg.header.stamp) / self.period_ns)
+        samples = self.decoder.decode(msg.name, msg.position, msg.velocity, msg.effort)
+        if not isinstance(samples, str):
+            tau_s = codec.pick_values(msg.name, msg.effort, self.joints)
+            tau_s = [float("nan")] * len(self.joints) if isinstance(tau_s, str) else tau_s
+            self.states[tick] = [(*s[:4], v) for s, v in zip(samples, tau_s)]
+        if self.streaming:
+            self.send_ahead(tick)
+
+    def _on_effort(self, msg):
+        taus = codec.pick_values(msg.name, msg.effort, self.commands)
+        if not isinstance(taus, str):
+            self.efforts[round(_ns(msg.header.stamp) / self.period_ns)] = taus
+
+    def arrays(self, ticks: int) -> dict:
+        """Recorded series over the first ``ticks`` ticks (all must be present)."""
+        states = np.array([self.states[k] for k in range(ticks)], dtype=float)  # (ticks, joints, 5)
+        cmd_ticks = sorted(k for k in self.efforts if k < ticks)
+        out = {k: states[:, :, i] for i, k in enumerate(("q", "dq", "theta", "dtheta", "tau_s"))}
+        out["t"] = np.arange(ticks) * self.period_ns * 1e-9
+        out["t_cmd"] = np.array(cmd_ticks) * self.period_ns * 1e-9
+        out["tau_m"] = np.array([self.efforts[k] for k in cmd_ticks], dtype=float).reshape(len(cmd_ticks), -1)
+        return out
+
+
+def _spin_until(node, condition, deadline: float) -> bool:
+    while not condition():
+        if time.monotonic() > deadline:
+            return False
+        rclpy.spin_once(node, timeout_sec=0.01)
+    return True
+
+
+def _transition(node, transition_id: int, deadline: float) -> bool:
+    client = node.create_client(ChangeState, f"{node.get_namespace().rstrip('/')}/{config.CONTROLLER_NODE}/change_state")
+    if not _spin_until(node, client.service_is_ready, deadline):
+        return False
+    future = client.call_async(ChangeState.Request(transition=Transition(id=transition_id)))
+    return _spin_until(node, future.done, deadline) and future.result().success
+
+
+def play(node, args) -> int:
+    doc = config.read(args.config or config.bundled())
+    ctrl_setup = config.controller_setup(config.node_parameters(doc, config.CONTROLLER_NODE))
+    sim_setup = config.sim_setup(config.node_parameters(doc, config.SIM_NODE))
+    scenario = scenarios.make(args.scenario, sim_setup.joints)
+    ticks = round((args.duration or scenario.duration) * sim_setup.state_rate)
+    player = ScenarioPlayer(node, scenario, ctrl_setup, sim_setup, args.lead)
+    deadline = time.monotonic() + args.timeout
+    log = node.get_logger()
+    if not _transition(node, Transition.TRANSITION_CONFIGURE, deadline):
+        log.error("could not configure the controller")
+        return 1
+    if not _spin_until(node, lambda: player.reference.get_subscription_count() > 0, deadline):
+        log.error("the controller does not listen on link_reference")
+        return 1
+    heard = lambda: 0 in player.states and node.count_publishers("motor_effort") > 0  # noqa: E731
+    if not _spin_until(node, heard, deadline):  # the joint repeats its first state until answered
+        log.error("no first joint state, or no controller publishing motor_effort")
+        return 1
+    player.streaming = True
+    player.send_ahead(0)  # stamped samples wait in the controller until their time
+    if not _transition(node, Transition.TRANSITION_ACTIVATE, deadline):
+        log.error("could not activate the controller")
+        return 1
+    done = lambda: all(k in player.states for k in range(ticks)) and max(player.efforts, default=-1) >= ticks - 1  # noqa: E731
+    if not _spin_until(node, done, deadline):
+        log.error(f"run incomplete after {args.timeout} s: {len(player.states)} of {ticks} states")
+        return 1
+    np.savez(args.out, joint_names=np.array(ctrl_setup.joint_names), **player.arrays(ticks))
+    _transition(node, Transition.TRANSITION_DEACTIVATE, time.monotonic() + 5.0)  # safe state, loop at rest
+    return 0
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(prog="scenario_player", description=__doc__.split("\n\n")[0])
+    p.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
+    p.add_argument("--scenario", choices=scenarios.SCENARIOS, default="end_stop_impact")
+    p.add_argument("--duration", type=float, help="s of sim time (default: the scenario's)")
+    p.add_argument("--lead", type=int, default=200, help="reference ticks sent ahead of the latest state")
+    p.add_argument("--timeout", type=float, default=60.0, help="s of wall time before giving up")
+    p.add_argument("--out", required=True, help=".npz file to write")
+    argv = sys.argv if argv is None else argv
+    args = p.parse_args(rclpy.utilities.remove_ros_args(argv)[1:])
+    rclpy.init(args=argv)
+    node = None
+    try:
+        node = rclpy.create_node("scenario_player")
+        return play(node, args)
+    except KeyboardInterrupt:
+        return 130
+    finally:
+        if node is not None:
+            node.destroy_node()
+        rclpy.try_shutdown()
+
+
+if __name__ == "__main__":
+    sys.exit(main())
