@@ -34,10 +34,10 @@ def torque(t):
     return 40.0 * t if t <= 0.5 else 20.0 - 90.0 * (t - 0.5)
 
 
-def write_bag(path, commands=True, duration=1.0):
+def write_bag(path, commands=True, duration=1.0, storage=StoragePlugin.MCAP):
     """Joint 'wrist' (invented): q = 0.3 sin(2 pi t), deflection 0.05 sin(2 pi t); states at 500 Hz,
     commands at 1 kHz; an unrelated joint 'aux' without a motor entry rides along."""
-    with Writer(path, version=9, storage_plugin=StoragePlugin.MCAP) as bag:
+    with Writer(path, version=9, storage_plugin=storage) as bag:
         states = bag.add_connection("/joint_states", JOINT_STATE.__msgtype__, typestore=STORE)
         cmd = bag.add_connection("/motor_effort", JOINT_STATE.__msgtype__, typestore=STORE) if commands else None
         for i in range(int(duration * 1000)):
@@ -79,6 +79,11 @@ def test_mcap_file_reads_like_the_bag_folder(bag):
     assert recordings.metrics(recordings.read(mcap)) == recordings.metrics(recordings.read(bag))
 
 
+def test_sqlite3_bag_reads_like_the_mcap_bag(bag, tmp_path):
+    db3 = write_bag(tmp_path / "wrist_db3", storage=StoragePlugin.SQLITE3)
+    assert recordings.metrics(recordings.read(db3)) == recordings.metrics(recordings.read(bag))
+
+
 def test_report_command_writes_table_json_and_plot(bag, tmp_path, capsys):
     assert cli.main(["report", str(bag), "--out", str(tmp_path)]) == 0
     table = capsys.readouterr().out
@@ -112,3 +117,19 @@ def test_csv_round_trip_matches_simulate_metrics(tmp_path):
     report = json.loads((tmp_path / "r" / "report.json").read_text())
     assert len(report) == 2  # the same file twice: two runs, two plots
     assert all((tmp_path / "r" / f"{stem}.png").exists() for stem in report)
+
+
+def test_simulation_result_as_recording(tmp_path):
+    """from_result (the demo's path to plots) gives simulate.metrics' own values, exactly."""
+    from compliant_damping import config, controller, plots, scenarios, simulate
+
+    ctrl, sim = config.load(config.bundled())
+    scenario = scenarios.make("end_stop_impact", sim.joints)
+    result = simulate.simulate(sim.joints, controller.bank(ctrl), scenario, 0.5,
+                               control_dt=1.0 / ctrl.control_rate, substeps=sim.substeps)
+    expected = simulate.metrics(result, scenario)["knee"]
+    got = recordings.metrics(recordings.from_result(result))["knee"]
+    for key, value in got.items():
+        assert value == pytest.approx(expected[key], rel=1e-12), key
+    png = plots.plot_run(recordings.from_result(result), tmp_path / "sim.png", title="end stop")
+    assert png.read_bytes()[:4] == b"\x89PNG"
