@@ -25,9 +25,9 @@ def _run(law, scenario, gains=JOINT.gains, limits=JOINT.limits, duration=None):
 
 def test_decoupled_damper_halves_the_impact_torque_rate():
     """Bundled end_stop_impact: decoupled_damper's peak motor-torque rate is at most half of
-    link_damping's. Measured: 492 vs 2797 N m/s, ratio 0.18 (peak torques 11.6 vs 13.4 N m).
-    The decoupled damper stays inside the torque (40 N m) and slew (10000 N m/s) limits, so the
-    comparison is not flattened by the safety filter."""
+    link_damping's. Measured: 773 vs 1639 N m/s, ratio 0.47 (peak torques 10.1 vs 14.0 N m), both
+    hitting the stop at about 0.9 rad/s. The decoupled damper stays inside the torque (40 N m) and
+    slew (10000 N m/s) limits, so the comparison is not flattened by the safety filter."""
     _, direct, _ = _run("link_damping", IMPACT)
     _, decoupled, ctrl = _run("decoupled_damper", IMPACT)
     assert ctrl.fault is None
@@ -41,7 +41,7 @@ def test_setpoint_step_decoupled_damper():
     """Bundled setpoint_step (0.05 rad): overshoot at most 5 %; 2 % settling within 1.5 times
     4 / (zeta w_n) of the dominant (slowest-decaying) mode, the common-practice estimate. The
     margin covers the slew-limited start and friction (the plant has Coulomb friction, the
-    linearisation does not). Measured: overshoot 0 %, settling 0.39 s vs estimate 0.37 s."""
+    linearisation does not). Measured: overshoot 0.005 %, settling 0.37 s vs estimate 0.31 s."""
     scenario = scenarios.make("setpoint_step", SIM.joints)
     _, m, ctrl = _run("decoupled_damper", scenario)
     res = analysis.analyze(SIM_JOINT.plant, make_law("decoupled_damper", JOINT.model, JOINT.gains), 0.05)
@@ -61,17 +61,20 @@ def _energy(run):
                                                 ("decoupled_impedance", 50.0)])
 def test_saturated_impact_stays_stable(law, link_stiffness):
     """end_stop_impact with the torque limit at 30 % of the law's unsaturated peak (the command is
-    saturated about 90 % of the time, measured): no fault, the link comes to rest against the stop
-    (|q'| < 1e-6 rad/s over the last 0.5 s) and the stored energy (model.energy) does not grow over
-    the last 1.5 s (it stays within 1 % of its value at 1.5 s, measured within 0.1 %)."""
+    saturated about 75 % of the time, measured). Stable means: no fault, the link comes to rest
+    against the stop (|q'| < 1e-6 rad/s from 2.5 s; measured below 1e-12), and the stored energy
+    (model.energy) does not grow: after the impact (t >= 1.5 s, the reference stops at 1.05 s) it
+    stays below its peak during the approach and impact, and from 2.5 s to 4 s it is constant within
+    1e-6 J (a growing or limit-cycling loop would fail both)."""
     gains = dataclasses.replace(JOINT.gains, link_stiffness=link_stiffness)
     _, free, _ = _run(law, IMPACT, gains)
     limits = dataclasses.replace(JOINT.limits, torque=0.3 * free["peak_abs_torque"])
-    run, m, ctrl = _run(law, IMPACT, gains, limits, duration=3.0)
+    run, m, ctrl = _run(law, IMPACT, gains, limits, duration=4.0)
     assert ctrl.fault is None
     assert np.mean(np.abs(run.tau_m[:, 0]) >= limits.torque - 1e-9) > 0.5  # the limit really acts
     late = run.t >= 2.5
     assert np.max(np.abs(run.dq[late, 0])) < 1e-6
     assert abs(m["final_link_position"] - SIM_JOINT.plant.stop_upper) < 0.01
-    energy = _energy(run)[run.t >= 1.5]
-    assert np.max(energy) <= 1.01 * energy[0]
+    energy = _energy(run)
+    assert np.max(energy[run.t >= 1.5]) < np.max(energy[run.t < 1.5])
+    assert np.ptp(energy[late]) < 1e-6
