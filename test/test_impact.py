@@ -25,12 +25,15 @@ def _run(law, scenario, gains=JOINT.gains, limits=JOINT.limits, duration=None):
 
 def test_decoupled_damper_halves_the_impact_torque_rate():
     """Bundled end_stop_impact: decoupled_damper's peak motor-torque rate is at most half of
-    link_damping's. Measured: 773 vs 1639 N m/s, ratio 0.47 (peak torques 10.1 vs 14.0 N m), both
-    hitting the stop at about 0.9 rad/s. The decoupled damper stays inside the torque (40 N m) and
-    slew (10000 N m/s) limits, so the comparison is not flattened by the safety filter."""
-    _, direct, _ = _run("link_damping", IMPACT)
-    _, decoupled, ctrl = _run("decoupled_damper", IMPACT)
+    link_damping's. Measured: 773 vs 1639 N m/s, ratio 0.47 (peak torques 10.1 vs 14.0 N m). The
+    comparison is fair: both hit the stop at nearly the same speed (measured 0.96 vs 0.91 rad/s,
+    checked within 10 %), and the decoupled damper stays inside the torque (40 N m) and slew
+    (10000 N m/s) limits, so the safety filter does not flatten the difference."""
+    run_d, direct, _ = _run("link_damping", IMPACT)
+    run, decoupled, ctrl = _run("decoupled_damper", IMPACT)
     assert ctrl.fault is None
+    speeds = [r.dq[np.argmax(r.q[:, 0] > SIM_JOINT.plant.stop_upper), 0] for r in (run, run_d)]
+    assert speeds[0] == pytest.approx(speeds[1], rel=0.1)
     assert decoupled["max_link_position"] > SIM_JOINT.plant.stop_upper  # it really hits the stop
     assert decoupled["peak_torque_rate"] <= 0.5 * direct["peak_torque_rate"]
     assert decoupled["peak_abs_torque"] < JOINT.limits.torque
