@@ -11,7 +11,15 @@ Coulomb friction is smoothed with ``tanh(theta'/v_c)`` in the plant; its slope
 at rest, ``tau_c / v_c``, would enter the linear model as a large motor-side
 viscous term that the real (non-smooth) friction does not provide for motion.
 It is therefore switched off for the linearisation unless ``coulomb=True``.
-End stops are inactive at an equilibrium between them.
+End stops and the driver's saturation are inactive at an equilibrium between
+the stops.
+
+Definitions used throughout: a *mode* is a real pole or a conjugate pair, with
+natural frequency ``|p|`` and damping ratio ``-Re(p)/|p|``; the *dominant* mode
+decays slowest (smallest ``-Re(p)``) and sets the settling time, about
+``4 / (zeta w_n)`` to 2 % (common practice); the *least-damped* mode has the
+smallest damping ratio and sets the ringing. The static link stiffness is the
+inverse DC gain from a constant external link torque to the link position.
 
 Public API: :func:`linearize`, :func:`analyze`, :func:`link_admittance`,
 :func:`modes_of`, and the result classes :class:`LinearModel`, :class:`Mode`,
