@@ -20,6 +20,7 @@ from rclpy.parameter import Parameter
 from rclpy.qos import QoSProfile
 from rosgraph_msgs.msg import Clock
 from sensor_msgs.msg import JointState
+from std_msgs.msg import Float64MultiArray
 from std_srvs.srv import Trigger
 
 from compliant_damping import config
@@ -52,13 +53,15 @@ class Probe:
     def __init__(self, context, scope: dict):
         self.node = rclpy.create_node("test_probe", context=context, **scope)
         reliable = QoSProfile(depth=100)
-        self.efforts, self.states, self.diagnostics = [], [], []
+        self.efforts, self.states, self.diagnostics, self.arrays = [], [], [], []
+        self.node.create_subscription(Float64MultiArray, "motor_effort_array", self.arrays.append, reliable)
         self.node.create_subscription(JointState, "motor_effort", self.efforts.append, reliable)
         self.node.create_subscription(JointState, "joint_states", self.states.append, reliable)
         self.node.create_subscription(DiagnosticArray, "/diagnostics", self.diagnostics.append, 10)
         self.reference = self.node.create_publisher(JointState, "link_reference", reliable)
         self.joint_states = self.node.create_publisher(JointState, "joint_states", reliable)
         self.clock = self.node.create_publisher(Clock, "/clock", 10)
+        self.impulse = self.node.create_publisher(JointState, "external_impulse", reliable)
 
     def trigger(self, harness, service: str):
         """Call a std_srvs/Trigger service of the controller; returns the response."""

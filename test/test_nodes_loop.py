@@ -123,3 +123,47 @@ def test_lock_gains_refuses_law_and_gain_changes(ros):
     bundled = config.node_parameters(DOC, config.CONTROLLER_NODE)
     assert ctrl.bank[0].law_name == bundled["law"]
     assert ctrl.bank[0].gains.link_damping == bundled["knee.gains.link_damping"]
+
+
+def test_external_impulse_topic_matches_the_offline_impulse_scenario(ros):
+    # The topic delivers the impulse as a one-period pulse; the external_impulse scenario with
+    # impulse_width = one period is the same input, so the runs must agree (offline simulator).
+    impulse, at = 0.05, 0.2
+    ctrl = ros.controller()
+    assert ctrl.trigger_configure().name == "SUCCESS"
+    sim = ros.simulated_joint()  # waits: nobody answers yet
+    msg = JointState(name=["knee"], effort=[impulse])
+    msg.header.stamp = stamp(at)
+    ros.publish_when_heard(ros.probe.impulse, msg)
+    assert ros.spin_until(lambda: len(sim.plant.external) == 1, 5.0)
+    assert ctrl.trigger_activate().name == "SUCCESS"
+    duration = 0.6
+    assert ros.spin_until(lambda: sim.plant.ticks >= round(duration * 1000), 60.0)
+    q_ros = _link_positions(ros.probe.states, duration)
+
+    ctrl_setup, sim_setup = config.load(config.bundled())
+    scenario = scenarios.make("external_impulse", sim_setup.joints, impulse=impulse, impulse_width=1e-3)
+    assert scenario.external[0, 1] == at
+    offline = simulate.simulate(sim_setup.joints, controller.bank(ctrl_setup), scenario, duration,
+                                control_dt=1e-3, substeps=sim_setup.substeps)
+    q = np.array([q_ros[k] for k in range(len(offline.t))])
+    print(f"impulse {impulse} N m s: peak link excursion {np.max(np.abs(q)):.4f} rad, "
+          f"max |q_ros - q_offline| = {np.max(np.abs(q - offline.q[:, 0])):.3g} rad")
+    # impulse-momentum theorem: right after the pulse the link speed is J / M (spring and
+    # gravity act for only one period; a few per cent)
+    after = next(m for m in ros.probe.states if round(seconds(m.header.stamp) * 1000) == round(at * 1000) + 1)
+    assert after.velocity[0] == pytest.approx(impulse / sim_setup.joints[0].plant.link_inertia, rel=0.05)
+    assert np.max(np.abs(q - offline.q[:, 0])) < 1e-9
+
+
+def test_end_stop_moves_at_run_time(ros):
+    ctrl, sim = _start_loop(ros, reference=_reference(0.0, 0.5))
+    refused = sim.set_parameters([Parameter("knee.stop_upper", value=-0.1)])[0]
+    assert not refused.successful and "initial_position" in refused.reason
+    assert sim.set_parameters([Parameter("knee.stop_upper", value=0.3)])[0].successful
+    assert ros.spin_until(lambda: sim.plant.ticks >= 800, 60.0)
+    q = [m.position[0] for m in ros.probe.states]
+    print(f"stop moved to 0.3 rad: max link position {max(q):.4f} rad, last {q[-1]:.4f} rad")
+    assert 0.3 < max(q) < 0.35  # the impact pushes in a little, far from the reference (0.5) or the old stop
+    # at rest the contact (stiffness 2e4 N m/rad) holds at most the 40 N m torque limit plus gravity
+    assert abs(q[-1] - 0.3) < (40.0 + 2.0) / 2.0e4

@@ -154,8 +154,9 @@ def test_lifecycle_inactive_is_silent_and_deactivate_ramps_to_zero(ros):
 
 
 def test_malformed_or_non_finite_joint_states_never_reach_the_motor(ros):
-    ctrl = _active_controller(ros)
+    ctrl = _active_controller(ros, array_output=True)
     assert _tick(ros, ctrl, PERIOD) == 0.0
+    assert ros.spin_until(lambda: len(ros.probe.arrays) == 1, 5.0) and list(ros.probe.arrays[0].data) == [0.0]
     bad = [
         ("lengths", dict(), lambda m: m.velocity.pop()),
         ("missing motor entry", dict(names=("knee",)), None),
@@ -174,7 +175,7 @@ def test_malformed_or_non_finite_joint_states_never_reach_the_motor(ros):
         ros.spin_until(lambda: ctrl.decoder.rejected == bad.index((label, fields, spoil)) + 1, 2.0)
         ros.spin_for(0.05)
         assert _answer(ros, t) is None, f"{label}: a command was computed"
-    assert ctrl.decoder.rejected == len(bad)
+    assert ctrl.decoder.rejected == len(bad) and len(ros.probe.arrays) == 1
     assert ctrl.bank[0].fault is None  # nothing non-finite ever reached the law or the filter
     t += PERIOD
     assert _tick(ros, ctrl, t) == 0.0  # good states are answered again

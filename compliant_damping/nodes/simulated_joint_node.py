@@ -76,7 +76,7 @@ class SimulatedJointNode(Node):
         self.create_subscription(JointState, "external_impulse", self._on_external_impulse, 10)
         self.add_on_set_parameters_callback(self._on_set_parameters)
         if lock:
-            self._clock = self.create_publisher(ClockMsg, "/clock", 10)
+            self._clock_pub = self.create_publisher(ClockMsg, "/clock", 10)
             self._moved = True
             self.create_timer(REPEAT_AFTER, self._on_repeat, clock=Clock(clock_type=ClockType.STEADY_TIME))
             self._publish()
@@ -116,8 +116,8 @@ class SimulatedJointNode(Node):
         if isinstance(values, str):
             self.get_logger().warning(f"external torque rejected: {values}")
             return
-        stamp = _ns(msg.header.stamp) * 1e-9
-        start = self.plant.t + (max(stamp - self._state_time(), 0.0) if stamp else 0.0)
+        stamp, now = _ns(msg.header.stamp) * 1e-9, self._state_time()
+        start = max(stamp, now) if self.setup.lock_step else self.plant.t + max(stamp - now, 0.0)
         for j, v in enumerate(values):
             if v is not None:
                 apply(j, v, start)
@@ -145,7 +145,7 @@ class SimulatedJointNode(Node):
         if self.setup.lock_step:
             ns = self.plant.ticks * self._period_ns
             stamp = Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
-            self._clock.publish(ClockMsg(clock=stamp))
+            self._clock_pub.publish(ClockMsg(clock=stamp))
         else:
             stamp = self.get_clock().now().to_msg()
         name, pos, vel, eff = codec.encode_states(self.setup.joint_names, self.plant.readings, self.plant.applied)
