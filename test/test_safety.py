@@ -2,16 +2,19 @@
 
 The reference for every check is the safety contract of the design notes (section 5),
 written out here by hand: saturation |tau| <= tau_max, slew |tau - tau_prev| <= rate * dt,
-non-finite input => fault, latching fault cleared only by reset() within limits.
+non-finite input => fault, latching fault cleared only by reset() within limits; for
+joint-state decoding, the interface rule of joint_state_codec's notes, written out by hand.
 Float comparisons allow one unit in the last place (math.ulp), the rounding of one addition.
 """
 import math
+from types import SimpleNamespace
 
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from compliant_damping.controller import JointController
+from compliant_damping.joint_state_codec import StateDecoder
 from compliant_damping.laws import LAW_NAMES, Gains, NominalModel
 from compliant_damping.safety import Limits, SafetyFilter
 from compliant_damping.sample import JointSample
@@ -273,10 +276,6 @@ def test_reset_refused_before_any_reading():
 
 
 # ---- joint-state decoding (joint_state_codec): malformed messages never reach the controller ---------
-
-from types import SimpleNamespace  # noqa: E402
-
-from compliant_damping.joint_state_codec import StateDecoder  # noqa: E402
 
 CODEC_JOINTS = [SimpleNamespace(link_state="knee", motor_state="knee_motor"),
                 SimpleNamespace(link_state="hip", motor_state="hip_motor")]
