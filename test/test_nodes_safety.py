@@ -152,6 +152,15 @@ def test_lifecycle_inactive_is_silent_and_deactivate_ramps_to_zero(ros):
     ticks = sim.plant.ticks
     assert ros.spin_until(lambda: sim.plant.ticks >= ticks + 20, 30.0) and ctrl.bank[0].fault is None
 
+    answered = ctrl._answered
+    assert ctrl.trigger_shutdown().name == "SUCCESS"  # from active: the same ramp, then silence for good
+    ros.spin_for(0.3)
+    ramp = [m.effort[0] for m in ros.probe.efforts if round(seconds(m.header.stamp) * 1e9) > answered]
+    assert ramp and ramp[-1] == 0.0
+    count = len(ros.probe.efforts)
+    ros.spin_for(0.5)
+    assert len(ros.probe.efforts) == count
+
 
 def test_malformed_or_non_finite_joint_states_never_reach_the_motor(ros):
     ctrl = _active_controller(ros, array_output=True)
