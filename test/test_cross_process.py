@@ -1,0 +1,129 @@
+"""The impact claim over ROS: simulated joint and controller as two processes, driven from here.
+
+Per law, ``python -m compliant_damping.nodes.simulated_joint_node`` (lock step) and
+``python -m compliant_damping.nodes.controller_node`` (sim time, the law set by ``-p law:=``)
+run as child processes in a namespace of their own, with the environment inherited: the test
+reads each child's environment from /proc and checks the loopback discovery settings and the
+domain. The test process then plays the bundled end_stop_impact scenario on ``link_reference``
+and records ``joint_states`` and ``motor_effort`` (nodes.scenario_player.play, in process).
+
+Checks, on the bundled knee:
+
+* the claim (test_impact.py checks it offline): decoupled_damper's peak motor-torque rate is at
+  most half of link_damping's, here as measured over ROS;
+* each ROS run reproduces the offline simulator (simulate.simulate) tick for tick: in lock step
+  the processes see exactly the offline sequence of readings, so link positions and torques
+  agree to 1e-9 rad / N m (float64 round trips through the messages are exact; the tolerance
+  only allows for the order of floating-point sums).
+
+Each run takes a few seconds of wall time (2 s of sim time); the player gives up after 50 s.
+"""
+import argparse
+import dataclasses
+import os
+import signal
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+rclpy = pytest.importorskip("rclpy", reason="cross-process tests need rclpy")
+pytest.importorskip("compliant_damping.nodes.controller_node", reason="the controller node does not exist yet")
+pytest.importorskip("compliant_damping.nodes.simulated_joint_node", reason="the simulated joint node does not exist yet")
+player = pytest.importorskip("compliant_damping.nodes.scenario_player", reason="the scenario player does not exist yet")
+
+from compliant_damping import config, controller, demo, scenarios, simulate  # noqa: E402
+
+pytestmark = pytest.mark.ros
+
+SCENARIO = "end_stop_impact"
+LAWS = ("link_damping", "decoupled_damper")
+NETWORK_ENV = ("ROS_AUTOMATIC_DISCOVERY_RANGE", "ROS_LOCALHOST_ONLY", "ROS_DOMAIN_ID")
+CTRL, SIM = config.load(config.bundled())
+DT = 1.0 / CTRL.control_rate
+
+
+def _environ(pid: int) -> dict:
+    """Environment of a running child process (Linux /proc)."""
+    raw = open(f"/proc/{pid}/environ", "rb").read().split(b"\0")
+    return dict(item.decode().split("=", 1) for item in raw if b"=" in item)
+
+
+def _stop(proc) -> int:
+    """SIGINT, then wait (kill after 10 s); returns the exit code."""
+    if proc.poll() is None:
+        proc.send_signal(signal.SIGINT)
+        try:
+            proc.wait(10.0)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+    return proc.returncode
+
+
+def run_over_ros(law: str, folder) -> simulate.SimResult:
+    ns = f"/cdamp_cross_{os.getpid()}_{law}"
+    params = demo.namespaced_file(config.bundled(), ns, folder / f"{law}.params.yaml")
+    ros_args = ["--ros-args", "-r", f"__ns:={ns}", "-r", f"/clock:={ns}/clock", "-r", f"/diagnostics:={ns}/diagnostics",
+                "--params-file", str(params)]
+    commands = {
+        "simulated_joint": [sys.executable, "-m", "compliant_damping.nodes.simulated_joint_node", *ros_args,
+                            "-p", "lock_step:=true"],
+        "controller": [sys.executable, "-m", "compliant_damping.nodes.controller_node", *ros_args,
+                       "-p", "use_sim_time:=true", "-p", f"law:={law}"],
+    }
+    procs = {}
+    try:
+        for name, cmd in commands.items():
+            procs[name] = subprocess.Popen(cmd, stdout=open(folder / f"{law}.{name}.log", "w"),
+                                           stderr=subprocess.STDOUT)  # environment inherited
+        for name, proc in procs.items():
+            child = _environ(proc.pid)
+            assert {k: child.get(k) for k in NETWORK_ENV} == {k: os.environ[k] for k in NETWORK_ENV}, name
+        rclpy.init()
+        try:
+            node = rclpy.create_node("cross_process_player", namespace=ns)
+            args = argparse.Namespace(config=None, scenario=SCENARIO, duration=None, lead=200, timeout=50.0,
+                                      out=str(folder / f"{law}.npz"))
+            assert player.play(node, args) == 0, f"run incomplete; logs in {folder}"
+            node.destroy_node()
+        finally:
+            rclpy.shutdown()
+    finally:
+        codes = {name: _stop(proc) for name, proc in procs.items()}
+    assert all(code == 0 for code in codes.values()), f"exit codes {codes}; logs in {folder}"
+    with np.load(folder / f"{law}.npz") as data:
+        return demo.as_result({k: data[k] for k in data.files}, DT)
+
+
+@pytest.fixture(scope="module")
+def over_ros(tmp_path_factory):
+    """Lazily run each law once over ROS; {law: SimResult}."""
+    folder = tmp_path_factory.mktemp("cross_process")
+    runs = {}
+
+    def get(law):
+        if law not in runs:
+            runs[law] = run_over_ros(law, folder)
+        return runs[law]
+    return get
+
+
+@pytest.mark.parametrize("law", LAWS)
+def test_ros_run_reproduces_the_offline_simulator(over_ros, law):
+    scenario = scenarios.make(SCENARIO, SIM.joints)
+    ros = over_ros(law)
+    offline = simulate.simulate(SIM.joints, controller.bank(dataclasses.replace(CTRL, law=law)),
+                                scenario, control_dt=DT, substeps=SIM.substeps, seed=SIM.seed)
+    assert ros.q.shape == offline.q.shape == (round(scenario.duration / DT), 1)
+    assert np.max(ros.q) > SIM.joints[0].plant.stop_upper  # the link really hits the end stop
+    np.testing.assert_allclose(ros.q, offline.q, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(ros.tau_m, offline.tau_m, rtol=0, atol=1e-9)
+
+
+def test_decoupled_damper_halves_the_impact_torque_rate_over_ros(over_ros):
+    scenario = scenarios.make(SCENARIO, SIM.joints)
+    peak = {law: simulate.metrics(over_ros(law), scenario)["knee"]["peak_torque_rate"] for law in LAWS}
+    print(f"peak motor-torque rate over ROS: {peak} N m/s, ratio {peak['decoupled_damper'] / peak['link_damping']:.3f}")
+    assert peak["decoupled_damper"] <= 0.5 * peak["link_damping"]
