@@ -14,7 +14,14 @@ Topics (relative names):
   stamp of the joint state answered; reliable, keep last 1000 so a slow recorder loses nothing),
   ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output), ``/diagnostics`` (2 Hz, one status per joint).
 
-Services (std_srvs/Trigger): ``~/stop`` (safe mode now), ``~/reset_fault`` (refuses with the reason).
+Services (std_srvs/Trigger): ``~/stop`` (safe mode now), ``~/reset_fault`` (refuses with the
+reason: not active, no fresh joint state, or the safety filter's reason).
+
+Lifecycle: configure builds everything from the parameters; activate arms the watchdog (a timer
+at control_rate on the node clock, so sim time in lock step) and starts answering joint states;
+deactivate and shutdown ramp the torque to zero at the slew limit (stamps continue the last
+answered one, so a lock-step joint applies the ramp) and then publish nothing on motor_effort.
+A fault survives deactivate/activate; only ``~/reset_fault`` clears it.
 
 Parameters: config.parameter_specs. At run time ``law``, ``<joint>.gains.*``, ``<joint>.limits.*``,
 ``watchdog_timeout`` and ``gain_ramp_time`` may change (the whole set is validated by
