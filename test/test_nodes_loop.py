@@ -167,3 +167,20 @@ def test_end_stop_moves_at_run_time(ros):
     assert 0.3 < max(q) < 0.35  # the impact pushes in a little, far from the reference (0.5) or the old stop
     # at rest the contact (stiffness 2e4 N m/rad) holds at most the 40 N m torque limit plus gravity
     assert abs(q[-1] - 0.3) < (40.0 + 2.0) / 2.0e4
+
+
+def test_accepted_gain_change_ramps_in_over_gain_ramp_time(ros):
+    ctrl, sim = _start_loop(ros, reference=_reference(0.0, 0.1))
+    ramp = ctrl.setup.gain_ramp_time
+    assert ros.spin_until(lambda: sim.plant.ticks >= 100, 30.0)
+    old = ctrl.bank[0].gains
+    assert ctrl.set_parameters([Parameter("knee.gains.motor_damping", value=2.0 * old.motor_damping)])[0].successful
+    assert ctrl.bank[0].gains.motor_damping == 2.0 * old.motor_damping  # the target
+    start = sim.plant.ticks
+    half = start + round(0.5 * ramp * 1000)
+    assert ros.spin_until(lambda: sim.plant.ticks >= half, 30.0)
+    mid = ctrl.bank[0]._runner.law.gains.motor_damping  # the gains the law runs with now
+    assert 1.3 * old.motor_damping < mid < 1.7 * old.motor_damping  # about halfway (linear blend)
+    assert ros.spin_until(lambda: sim.plant.ticks >= start + round(ramp * 1000) + 5, 30.0)
+    assert ctrl.bank[0]._runner.law.gains.motor_damping == 2.0 * old.motor_damping
+    assert ctrl.bank[0].fault is None
