@@ -114,6 +114,16 @@ def test_rejected_parameter_changes_keep_old_values(ros):
     assert ctrl.bank[0].safety.limits.torque == 30.0
 
 
+def test_parameters_are_described_with_unit_and_meaning(ros):
+    ctrl, sim = ros.controller(), ros.simulated_joint()
+    spec = {s.key: s for s in config.parameter_specs(config.CONTROLLER_NODE, ["knee"])}
+    for key in ("knee.limits.torque", "knee.gains.link_damping", "watchdog_timeout"):
+        assert ctrl.describe_parameter(key).description == spec[key].description
+    assert "[N m]" in ctrl.describe_parameter("knee.limits.torque").description
+    assert "[rad]" in sim.describe_parameter("knee.stop_upper").description
+    assert ctrl.describe_parameter("joint_names").read_only
+
+
 def test_lock_gains_refuses_law_and_gain_changes(ros):
     ctrl = ros.controller(lock_gains=True)
     assert ctrl.trigger_configure().name == "SUCCESS"
