@@ -14,6 +14,9 @@ Launch arguments:
     Law name overriding the files.
 ``namespace`` (default: none)
     Namespace of the node and of its relative topics (``joint_states``, ``motor_effort``, ...).
+``use_sim_time`` (default ``false``)
+    ``true`` runs the controller on ``/clock`` (a lock-step simulated joint publishes it), so its
+    watchdog counts simulated time.
 ``auto_activate`` (default ``false``)
     ``true`` configures and activates the managed node at once. With the default it waits,
     unconfigured and silent, for you to look at ``joint_states`` and then run::
@@ -57,6 +60,7 @@ def _controller(context):
     if arg("law"):
         params["law"] = arg("law")
     config.controller_setup(params)  # refuse a bad file here, with the key and the reason
+    params["use_sim_time"] = arg("use_sim_time") == "true"
     node = LifecycleNode(package=PACKAGE, executable="damping_controller", name=config.CONTROLLER_NODE,
                          namespace=arg("namespace"), parameters=[params], output="screen")
     auto = IfCondition(arg("auto_activate"))
@@ -73,6 +77,8 @@ def generate_launch_description():
                               description="optional file layered over params_file, key by key"),
         DeclareLaunchArgument("law", default_value="", description="law overriding the files' law (empty: keep)"),
         DeclareLaunchArgument("namespace", default_value="", description="namespace of the node and its topics"),
+        DeclareLaunchArgument("use_sim_time", default_value="false", choices=["true", "false"],
+                              description="run on /clock (lock-step simulation)"),
         DeclareLaunchArgument("auto_activate", default_value="false", choices=["true", "false"],
                               description="configure and activate at once (keep false on hardware)"),
         OpaqueFunction(function=_controller),

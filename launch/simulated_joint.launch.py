@@ -15,7 +15,8 @@ Launch arguments:
     Namespace of both nodes and their topics.
 
 The controller part is controller.launch.py with ``auto_activate:=true``: in simulation it is
-configured and activated at once. Both executables come from the ament index, so this needs a
+configured and activated at once. When the file puts the simulated joint in lock step, the
+controller runs on its ``/clock`` (``use_sim_time``), as a lock-step loop needs. Both executables come from the ament index, so this needs a
 colcon workspace or an ``AMENT_PREFIX_PATH`` laid out like one (see controller.launch.py).
 """
 from pathlib import Path
@@ -32,17 +33,23 @@ from compliant_damping import config
 PACKAGE = "compliant_damping"
 
 
-def _simulated_joint(context):
+def _nodes(context):
     def arg(name):
         return LaunchConfiguration(name).perform(context)
     params = config.layered_parameters([arg("params_file")], config.SIM_NODE)
-    config.sim_setup(params)  # refuse a bad file here, with the key and the reason
-    return [Node(package=PACKAGE, executable="simulated_joint", name=config.SIM_NODE,
-                 namespace=arg("namespace"), parameters=[params], output="screen")]
+    lock_step = config.sim_setup(params).lock_step  # also refuses a bad file, with the key and the reason
+    forwarded = [(name, arg(name)) for name in ("params_file", "layer_file", "law", "namespace")]
+    return [
+        Node(package=PACKAGE, executable="simulated_joint", name=config.SIM_NODE,
+             namespace=arg("namespace"), parameters=[params], output="screen"),
+        IncludeLaunchDescription(
+            PythonLaunchDescriptionSource(str(Path(__file__).with_name("controller.launch.py"))),
+            launch_arguments=forwarded + [("auto_activate", "true"),
+                                          ("use_sim_time", "true" if lock_step else "false")]),
+    ]
 
 
 def generate_launch_description():
-    forwarded = ("params_file", "layer_file", "law", "namespace")
     return LaunchDescription([
         DeclareLaunchArgument("params_file",
                               default_value=PathJoinSubstitution([FindPackageShare(PACKAGE), "config",
@@ -52,9 +59,5 @@ def generate_launch_description():
                               description="optional file layered over params_file for the controller"),
         DeclareLaunchArgument("law", default_value="", description="law overriding the files' law (empty: keep)"),
         DeclareLaunchArgument("namespace", default_value="", description="namespace of both nodes and their topics"),
-        OpaqueFunction(function=_simulated_joint),
-        IncludeLaunchDescription(
-            PythonLaunchDescriptionSource(str(Path(__file__).with_name("controller.launch.py"))),
-            launch_arguments=[(name, LaunchConfiguration(name)) for name in forwarded]
-            + [("auto_activate", "true")]),
+        OpaqueFunction(function=_nodes),
     ])
