@@ -39,13 +39,13 @@ def _nodes(context):
     params = config.layered_parameters([arg("params_file")], config.SIM_NODE)
     lock_step = config.sim_setup(params).lock_step  # also refuses a bad file, with the key and the reason
     forwarded = [(name, arg(name)) for name in ("params_file", "layer_file", "law", "namespace")]
-    return [
-        Node(package=PACKAGE, executable="simulated_joint", name=config.SIM_NODE,
-             namespace=arg("namespace"), parameters=[params], output="screen"),
+    return [  # the controller first: a bad controller file stops the launch before anything runs
         IncludeLaunchDescription(
             PythonLaunchDescriptionSource(str(Path(__file__).with_name("controller.launch.py"))),
             launch_arguments=forwarded + [("auto_activate", "true"),
                                           ("use_sim_time", "true" if lock_step else "false")]),
+        Node(package=PACKAGE, executable="simulated_joint", name=config.SIM_NODE,
+             namespace=arg("namespace"), parameters=[params], output="screen"),
     ]
 
 
