@@ -13,7 +13,9 @@ Checks:
   = -0.2 N m, well inside the template's 2 N m torque limit.
 
 The watchdog is relaxed to 5 s through the launch file's layer_file argument, so that a loaded
-test machine cannot trip it between the test's spins. Skipped without the launch packages.
+test machine cannot trip it between the test's spins. Skipped without the launch packages;
+needs the package's executables on the ament index (colcon workspace). launch_testing's pytest
+plugin does not load under pytest 9 (a removed hook argument): use pytest < 9 or ``launch_test FILE``.
 """
 import os
 import tempfile

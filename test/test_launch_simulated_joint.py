@@ -13,6 +13,8 @@ of the bundled knee.
 
 Runs as a launch_testing test (pytest plugin, or ``launch_test FILE``) with the launch packages
 and the package's executables on the ament index (colcon workspace). Skipped without them.
+launch_testing's pytest plugin (jazzy and rolling sources) declares a hook argument that
+pytest 9 no longer has, so with the plugin installed use pytest < 9 or ``launch_test FILE``.
 """
 import math
 import os
