@@ -36,30 +36,26 @@ Laws (see DEVELOPERS.md for the derivations):
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from scipy.linalg import expm
 
+from .fields import param
 from .sample import JointSample
 
 LAW_NAMES = ("zero", "motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
-
-
-def _spec(unit: str, check: str, doc: str, default, required: bool = False):
-    """Field with unit, validity check and doc; ``required``: a parameter file must state it."""
-    return field(default=default, metadata={"unit": unit, "check": check, "doc": doc, "required": required})
 
 
 @dataclass(frozen=True)
 class NominalModel:
     """The controller's own model of the joint (need not equal the plant)."""
 
-    link_inertia: float = _spec("kg m^2", "positive", "nominal link inertia M", 1.0, required=True)
-    motor_inertia: float = _spec("kg m^2", "positive", "nominal motor inertia B (link side)", 1.0, required=True)
-    spring_stiffness: float = _spec("N m/rad", "positive", "nominal spring stiffness k", 100.0, required=True)
-    gravity_torque: float = _spec("N m", "nonnegative", "nominal pendulum load m g0 l", 0.0)
-    gravity_offset: float = _spec("rad", "finite", "nominal pendulum offset q_off", 0.0)
+    link_inertia: float = param("kg m^2", "positive", "nominal link inertia M", 1.0, required=True)
+    motor_inertia: float = param("kg m^2", "positive", "nominal motor inertia B (link side)", 1.0, required=True)
+    spring_stiffness: float = param("N m/rad", "positive", "nominal spring stiffness k", 100.0, required=True)
+    gravity_torque: float = param("N m", "nonnegative", "nominal pendulum load m g0 l", 0.0)
+    gravity_offset: float = param("rad", "finite", "nominal pendulum offset q_off", 0.0)
 
     def gravity(self, q: float) -> float:
         """g(q) (N m)."""
@@ -74,13 +70,13 @@ class NominalModel:
 class Gains:
     """Gains of all laws; each law reads the ones it needs (SI units)."""
 
-    motor_stiffness: float = _spec("N m/rad", "nonnegative", "K: motor (motor_pd) or eta position gain", 0.0)
-    motor_damping: float = _spec("N m s/rad", "nonnegative", "D: motor (motor_pd) or eta damping gain", 0.0)
-    link_damping: float = _spec("N m s/rad", "nonnegative", "D_l (link_damping) or D_v (decoupled laws)", 0.0)
-    link_stiffness: float = _spec("N m/rad", "nonnegative", "K_l: link stiffness of decoupled_impedance", 0.0)
-    decoupling_stiffness: float = _spec("N m/rad", "positive", "k_v: virtual spring in front of the damper", 100.0)
-    virtual_mass: float = _spec("kg m^2", "nonnegative", "m_v: virtual damper mass (0: first-order damper)", 0.0)
-    motor_inertia_target: float = _spec("kg m^2", "nonnegative", "B_d: shaped motor inertia (0: no shaping)", 0.0)
+    motor_stiffness: float = param("N m/rad", "nonnegative", "K: motor (motor_pd) or eta position gain", 0.0)
+    motor_damping: float = param("N m s/rad", "nonnegative", "D: motor (motor_pd) or eta damping gain", 0.0)
+    link_damping: float = param("N m s/rad", "nonnegative", "D_l (link_damping) or D_v (decoupled laws)", 0.0)
+    link_stiffness: float = param("N m/rad", "nonnegative", "K_l: link stiffness of decoupled_impedance", 0.0)
+    decoupling_stiffness: float = param("N m/rad", "positive", "k_v: virtual spring in front of the damper", 100.0)
+    virtual_mass: float = param("kg m^2", "nonnegative", "m_v: virtual damper mass (0: first-order damper)", 0.0)
+    motor_inertia_target: float = param("kg m^2", "nonnegative", "B_d: shaped motor inertia (0: no shaping)", 0.0)
 
 
 def _eta_regulation(model: NominalModel, gains: Gains, ref, eta: float, deta: float) -> float:

@@ -18,9 +18,11 @@ be compiled with numba when it is installed (plain Python otherwise).
 from __future__ import annotations
 
 import math
-from dataclasses import astuple, dataclass, field, fields
+from dataclasses import astuple, dataclass, fields
 
 import numpy as np
+
+from .fields import param
 
 try:  # numba is optional: the same function runs as plain Python without it.
     from numba import njit
@@ -29,34 +31,26 @@ except ImportError:  # pragma: no cover - exercised only where numba is absent
         return lambda fn: fn
 
 
-def _spec(unit: str, check: str, doc: str, default=None):
-    """Dataclass field with the unit, the validity check and a one-line doc."""
-    meta = {"unit": unit, "check": check, "doc": doc}
-    if default is None:
-        return field(metadata=meta)
-    return field(default=default, metadata=meta)
-
-
 @dataclass(frozen=True)
 class JointParams:
     """Physical parameters of one simulated series-elastic joint (SI units)."""
 
-    link_inertia: float = _spec("kg m^2", "positive", "link inertia M")
-    motor_inertia: float = _spec("kg m^2", "positive", "motor inertia B, reflected to the link side")
-    spring_stiffness: float = _spec("N m/rad", "positive", "linear spring stiffness k")
-    spring_cubic: float = _spec("N m/rad^3", "nonnegative", "progressive spring term k3", 0.0)
-    spring_damping: float = _spec("N m s/rad", "nonnegative", "damping of the elastic element d_s", 0.0)
-    link_viscous: float = _spec("N m s/rad", "nonnegative", "link viscous friction d_q", 0.0)
-    motor_viscous: float = _spec("N m s/rad", "nonnegative", "motor viscous friction d_th", 0.0)
-    motor_coulomb: float = _spec("N m", "nonnegative", "motor Coulomb friction tau_c", 0.0)
-    coulomb_speed: float = _spec("rad/s", "positive", "speed below which Coulomb friction is smoothed (tanh)", 0.01)
-    gravity_torque: float = _spec("N m", "nonnegative", "pendulum load m g0 l (0: no gravity)", 0.0)
-    gravity_offset: float = _spec("rad", "finite", "pendulum angle offset q_off", 0.0)
-    stop_lower: float = _spec("rad", "not_nan", "lower end stop q_min (-inf: none)", -math.inf)
-    stop_upper: float = _spec("rad", "not_nan", "upper end stop q_max (inf: none)", math.inf)
-    stop_stiffness: float = _spec("N m/rad", "nonnegative", "end-stop contact stiffness", 2.0e4)
-    stop_damping: float = _spec("N m s/rad", "nonnegative", "end-stop contact damping", 20.0)
-    driver_torque_limit: float = _spec("N m", "limit", "motor driver saturation (inf: none)", math.inf)
+    link_inertia: float = param("kg m^2", "positive", "link inertia M")
+    motor_inertia: float = param("kg m^2", "positive", "motor inertia B, reflected to the link side")
+    spring_stiffness: float = param("N m/rad", "positive", "linear spring stiffness k")
+    spring_cubic: float = param("N m/rad^3", "nonnegative", "progressive spring term k3", 0.0)
+    spring_damping: float = param("N m s/rad", "nonnegative", "damping of the elastic element d_s", 0.0)
+    link_viscous: float = param("N m s/rad", "nonnegative", "link viscous friction d_q", 0.0)
+    motor_viscous: float = param("N m s/rad", "nonnegative", "motor viscous friction d_th", 0.0)
+    motor_coulomb: float = param("N m", "nonnegative", "motor Coulomb friction tau_c", 0.0)
+    coulomb_speed: float = param("rad/s", "positive", "speed below which Coulomb friction is smoothed (tanh)", 0.01)
+    gravity_torque: float = param("N m", "nonnegative", "pendulum load m g0 l (0: no gravity)", 0.0)
+    gravity_offset: float = param("rad", "finite", "pendulum angle offset q_off", 0.0)
+    stop_lower: float = param("rad", "not_nan", "lower end stop q_min (-inf: none)", -math.inf)
+    stop_upper: float = param("rad", "not_nan", "upper end stop q_max (inf: none)", math.inf)
+    stop_stiffness: float = param("N m/rad", "nonnegative", "end-stop contact stiffness", 2.0e4)
+    stop_damping: float = param("N m s/rad", "nonnegative", "end-stop contact damping", 20.0)
+    driver_torque_limit: float = param("N m", "limit", "motor driver saturation (inf: none)", math.inf)
 
     def __post_init__(self):
         if not self.stop_lower < self.stop_upper:

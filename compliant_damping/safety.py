@@ -16,30 +16,27 @@ last reading is within limits.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
+from .fields import param
 from .sample import JointSample
 
 SAFE_MODES = ("zero_torque", "motor_damping")
-
-
-def _spec(unit: str, check: str, doc: str, default):
-    return field(default=default, metadata={"unit": unit, "check": check, "doc": doc})
 
 
 @dataclass(frozen=True)
 class Limits:
     """Safety limits of one joint (SI units). Infinite position/speed limits disable that check."""
 
-    torque: float = _spec("N m", "positive", "motor torque limit |tau_m|", 10.0)
-    torque_rate: float = _spec("N m/s", "positive", "motor torque slew limit |d tau_m/dt|", 1.0e3)
-    deflection: float = _spec("rad", "positive", "spring deflection limit |theta - q|", 0.2)
-    position_lower: float = _spec("rad", "not_nan", "lowest allowed link position", -math.inf)
-    position_upper: float = _spec("rad", "not_nan", "highest allowed link position", math.inf)
-    link_speed: float = _spec("rad/s", "limit", "link speed limit |q'|", math.inf)
-    motor_speed: float = _spec("rad/s", "limit", "motor speed limit |theta'| (link side)", math.inf)
-    safe_damping: float = _spec("N m s/rad", "nonnegative", "motor-side damping in motor_damping safe mode", 0.0)
-    driver_torque: float = _spec("N m", "limit", "rated torque of the motor driver; torque may not exceed it", math.inf)
+    torque: float = param("N m", "positive", "motor torque limit |tau_m|", 10.0, required=True)
+    torque_rate: float = param("N m/s", "positive", "motor torque slew limit |d tau_m/dt|", 1.0e3, required=True)
+    deflection: float = param("rad", "positive", "spring deflection limit |theta - q|", 0.2, required=True)
+    position_lower: float = param("rad", "not_nan", "lowest allowed link position", -math.inf)
+    position_upper: float = param("rad", "not_nan", "highest allowed link position", math.inf)
+    link_speed: float = param("rad/s", "limit", "link speed limit |q'|", math.inf)
+    motor_speed: float = param("rad/s", "limit", "motor speed limit |theta'| (link side)", math.inf)
+    safe_damping: float = param("N m s/rad", "nonnegative", "motor-side damping in motor_damping safe mode", 0.0)
+    driver_torque: float = param("N m", "limit", "rated torque of the motor driver; torque may not exceed it", math.inf)
 
     def __post_init__(self):
         if not self.position_lower < self.position_upper:

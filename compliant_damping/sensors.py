@@ -3,26 +3,23 @@ from __future__ import annotations
 
 import math
 from collections import deque
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
+from .fields import param
 from .sample import JointSample
-
-
-def _spec(unit: str, check: str, doc: str, default):
-    return field(default=default, metadata={"unit": unit, "check": check, "doc": doc})
 
 
 @dataclass(frozen=True)
 class SensorParams:
     """Measurement imperfections of one simulated joint."""
 
-    position_noise: float = _spec("rad", "nonnegative", "std. dev. of white noise on q and theta", 0.0)
-    velocity_noise: float = _spec("rad/s", "nonnegative", "std. dev. of white noise on q' and theta'", 0.0)
-    torque_noise: float = _spec("N m", "nonnegative", "std. dev. of white noise on the spring torque", 0.0)
-    encoder_resolution: float = _spec("rad", "nonnegative", "position quantum of both encoders (0: none)", 0.0)
-    delay: float = _spec("s", "nonnegative", "transport delay of the readings (rounded to whole samples)", 0.0)
+    position_noise: float = param("rad", "nonnegative", "std. dev. of white noise on q and theta", 0.0)
+    velocity_noise: float = param("rad/s", "nonnegative", "std. dev. of white noise on q' and theta'", 0.0)
+    torque_noise: float = param("N m", "nonnegative", "std. dev. of white noise on the spring torque", 0.0)
+    encoder_resolution: float = param("rad", "nonnegative", "position quantum of both encoders (0: none)", 0.0)
+    delay: float = param("s", "nonnegative", "transport delay of the readings (rounded to whole samples)", 0.0)
 
 
 class SensorChannel:
