@@ -1,4 +1,4 @@
-"""``cdamp``: offline work on a series-elastic joint (simulate; more commands join here)."""
+"""``cdamp``: offline work on a series-elastic joint: simulate, analyze, tune, report, demo, keys."""
 from __future__ import annotations
 
 import argparse
@@ -119,6 +119,8 @@ def cmd_analyze(args) -> int:
 def cmd_tune(args) -> int:
     """Sweep k_v of decoupled_damper: impact torque rate and peak vs the least-damped mode; recommend one."""
     from tqdm import tqdm
+
+    from . import plots
     ctrl, sim = _load(args)
     cj, sj = _joint(args, ctrl, sim)
     grid = tuning.log_grid(args.kv_min, args.kv_max, args.points)
@@ -127,7 +129,7 @@ def cmd_tune(args) -> int:
                                                    substeps=sim.substeps, progress=lambda _: bar.update())
     best = tuning.recommend(points, args.min_damping_ratio)
     if args.plot:
-        _plot_tune(args.plot, points, best, args.min_damping_ratio, cj.limits)
+        plots.plot_tuning(points, best, args.min_damping_ratio, cj.limits, args.plot)
     if args.json:
         print(json.dumps({"law": tuning.LAW, "joint": cj.name, "min_damping_ratio": args.min_damping_ratio,
                           "limits": {"torque": cj.limits.torque, "torque_rate": cj.limits.torque_rate},
@@ -150,30 +152,6 @@ def cmd_tune(args) -> int:
         print(f"recommended: decoupling_stiffness {best.decoupling_stiffness:.4g} N m/rad (softest with "
               f"zeta >= {args.min_damping_ratio}, common practice, and inside the torque and slew limits)")
     return 0
-
-
-def _plot_tune(path, points, best, min_zeta, limits):
-    """Two panels over k_v: impact torque rate and least-damped damping ratio."""
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    kv = [p.decoupling_stiffness for p in points]
-    fig, (top, bottom) = plt.subplots(2, 1, sharex=True, figsize=(6.0, 5.0))
-    top.loglog(kv, [p.peak_torque_rate for p in points], "o-")
-    top.axhline(limits.torque_rate, color="r", ls="--", label="slew limit")
-    top.set_ylabel("impact peak |dtau_m/dt| (N m/s)")
-    top.legend()
-    bottom.semilogx(kv, [p.damping_ratio for p in points], "o-")
-    bottom.axhline(min_zeta, color="r", ls="--", label=f"zeta = {min_zeta}")
-    if best is not None:
-        for ax in (top, bottom):
-            ax.axvline(best.decoupling_stiffness, color="g", ls=":")
-    bottom.set_xlabel("decoupling stiffness k_v (N m/rad)")
-    bottom.set_ylabel("least-damped zeta")
-    bottom.legend()
-    fig.tight_layout()
-    fig.savefig(path, dpi=120)
-    plt.close(fig)
 
 
 REPORT_COLUMNS = (("peak_abs_torque", "peak |tau_m| N m", ".3f"), ("peak_torque_rate", "peak rate N m/s", ".1f"),
@@ -205,14 +183,20 @@ def cmd_report(args) -> int:
     return 0
 
 
+def _file_args(p, law: bool = True):
+    """--config, --layer (and --law) shared by the commands that read parameter files."""
+    p.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
+    p.add_argument("--layer", action="append", metavar="FILE",
+                   help="parameter file layered over --config, key by key (repeatable; e.g. config/laws/*.yaml)")
+    if law:
+        p.add_argument("--law", choices=LAW_NAMES, help="override the file's law")
+
+
 def parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="cdamp", description=__doc__)
     sub = p.add_subparsers(dest="command", required=True)
     s = sub.add_parser("simulate", help="run a bundled scenario on the simulated joint, print metrics")
-    s.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
-    s.add_argument("--law", choices=LAW_NAMES, help="override the file's law")
-    s.add_argument("--layer", action="append", metavar="FILE",
-                   help="parameter file layered over --config, key by key (repeatable; e.g. config/laws/*.yaml)")
+    _file_args(s)
     s.add_argument("--scenario", choices=scenarios.SCENARIOS, default="end_stop_impact")
     s.add_argument("--duration", type=float, help="seconds to simulate (default: the scenario's)")
     s.add_argument("--csv", help="write the time series to this CSV file")
@@ -226,16 +210,13 @@ def parser() -> argparse.ArgumentParser:
     k.add_argument("--config", help="parameter file whose joint names to use (default: bundled)")
     k.set_defaults(run=cmd_keys)
     a = sub.add_parser("analyze", help="linearise law + joint at the set point: poles, modes, static stiffness")
-    a.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
-    a.add_argument("--layer", action="append", metavar="FILE",
-                   help="parameter file layered over --config, key by key (repeatable; e.g. config/laws/*.yaml)")
-    a.add_argument("--law", choices=LAW_NAMES, help="override the file's law")
+    _file_args(a)
     a.add_argument("--joint", help="joint to analyse (default: the first)")
     a.add_argument("--setpoint", type=float, help="link set point, rad (default: the joint's initial position)")
     a.add_argument("--json", action="store_true", help="print the result as JSON")
     a.set_defaults(run=cmd_analyze)
     t = sub.add_parser("tune", help="sweep decoupled_damper's k_v: impact torque vs link damping, recommend one")
-    t.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
+    _file_args(t, law=False)
     t.add_argument("--joint", help="joint to tune (default: the first)")
     t.add_argument("--kv-min", type=float, default=10.0, help="softest k_v, N m/rad (default 10)")
     t.add_argument("--kv-max", type=float, default=1.0e4, help="stiffest k_v, N m/rad (default 1e4)")

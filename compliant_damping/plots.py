@@ -4,15 +4,20 @@ from __future__ import annotations
 from pathlib import Path
 
 
+def _pyplot():
+    """matplotlib.pyplot on the file-only Agg backend (imported late: plotting is optional work)."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    return plt
+
+
 def plot_run(rec, path, title: str | None = None) -> Path:
     """Link position, spring deflection and motor torque against time, one line per joint.
 
     rec: recordings.Recording; path: PNG file to write (its folder must exist). Returns the path.
     """
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
+    plt = _pyplot()
     fig, (ax_q, ax_phi, ax_tau) = plt.subplots(3, 1, sharex=True, figsize=(8, 7))
     for name, j in rec.joints.items():
         ax_q.plot(j.t, j.q, label=name)
@@ -28,5 +33,28 @@ def plot_run(rec, path, title: str | None = None) -> Path:
     fig.suptitle(title or rec.source)
     fig.tight_layout()
     fig.savefig(path, dpi=100)
+    plt.close(fig)
+    return Path(path)
+
+
+def plot_tuning(points, best, min_zeta, limits, path) -> Path:
+    """Two panels over k_v: impact peak torque rate and least-damped damping ratio (tuning.sweep points)."""
+    plt = _pyplot()
+    kv = [p.decoupling_stiffness for p in points]
+    fig, (top, bottom) = plt.subplots(2, 1, sharex=True, figsize=(6.0, 5.0))
+    top.loglog(kv, [p.peak_torque_rate for p in points], "o-")
+    top.axhline(limits.torque_rate, color="r", ls="--", label="slew limit")
+    top.set_ylabel("impact peak |dtau_m/dt| (N m/s)")
+    top.legend()
+    bottom.semilogx(kv, [p.damping_ratio for p in points], "o-")
+    bottom.axhline(min_zeta, color="r", ls="--", label=f"zeta = {min_zeta}")
+    if best is not None:
+        for ax in (top, bottom):
+            ax.axvline(best.decoupling_stiffness, color="g", ls=":")
+    bottom.set_xlabel("decoupling stiffness k_v (N m/rad)")
+    bottom.set_ylabel("least-damped zeta")
+    bottom.legend()
+    fig.tight_layout()
+    fig.savefig(path, dpi=120)
     plt.close(fig)
     return Path(path)
