@@ -31,12 +31,11 @@ changes only while unconfigured. ``lock_gains: true`` refuses law and gain chang
 from __future__ import annotations
 
 import re
+import sys
 import time
 
-import rclpy
 from builtin_interfaces.msg import Time
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus, KeyValue
-from rclpy.executors import ExternalShutdownException
 from rclpy.lifecycle import Node as LifecycleNode
 from rclpy.lifecycle import TransitionCallbackReturn
 from rclpy.publisher import Publisher
@@ -50,7 +49,7 @@ from std_srvs.srv import Trigger
 
 from .. import config, controller
 from .. import joint_state_codec as codec
-from . import params
+from . import params, spin
 
 RUNTIME_KEYS = re.compile(r"^(law|watchdog_timeout|gain_ramp_time|[^.]+\.(gains|limits)\.\w+)$")
 
@@ -261,19 +260,9 @@ class ControllerNode(LifecycleNode):
         self._last_command = list(taus)
 
 
-def main(args=None):
-    rclpy.init(args=args)
-    node = None
-    try:
-        node = ControllerNode()
-        rclpy.spin(node)
-    except (KeyboardInterrupt, ExternalShutdownException):
-        pass
-    finally:
-        if node is not None:
-            node.destroy_node()
-        rclpy.try_shutdown()
+def main(args=None) -> int:
+    return spin.run(ControllerNode, args)
 
 
 if __name__ == "__main__":
-    main()
+    sys.exit(main())

@@ -35,10 +35,8 @@ import math
 import sys
 from dataclasses import fields
 
-import rclpy
 from builtin_interfaces.msg import Time
 from rclpy.clock import Clock, ClockType
-from rclpy.executors import ExternalShutdownException
 from rclpy.node import Node
 from rclpy.qos import QoSProfile, qos_profile_sensor_data
 from rosgraph_msgs.msg import Clock as ClockMsg
@@ -48,7 +46,7 @@ from .. import config
 from .. import joint_state_codec as codec
 from ..model import JointParams
 from ..plant import Plant
-from . import params
+from . import params, spin
 
 REPEAT_AFTER = 0.2  # s of wall time without an answering command before the state is sent again
 
@@ -154,22 +152,8 @@ class SimulatedJointNode(Node):
         self._pub.publish(msg)
 
 
-def main(args=None):
-    rclpy.init(args=args)
-    node = None
-    try:
-        node = SimulatedJointNode()
-        rclpy.spin(node)
-    except config.ConfigError as err:
-        print(f"simulated_joint: {err}", file=sys.stderr)
-        return 2
-    except (KeyboardInterrupt, ExternalShutdownException):
-        pass
-    finally:
-        if node is not None:
-            node.destroy_node()
-        rclpy.try_shutdown()
-    return 0
+def main(args=None) -> int:
+    return spin.run(SimulatedJointNode, args)
 
 
 if __name__ == "__main__":
