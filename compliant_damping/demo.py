@@ -42,18 +42,21 @@ def check_env(env=os.environ) -> None:
                         "`make demo` sets them")
 
 
-def _module(name: str, *args) -> list:
+def module(name: str, *args) -> list:
+    """Command line that runs ``compliant_damping.nodes.<name>`` with this interpreter."""
     return [sys.executable, "-m", f"compliant_damping.nodes.{name}", *args]
 
 
-def _stop(proc: subprocess.Popen) -> None:
+def stop(proc: subprocess.Popen, timeout: float = 5.0) -> int:
+    """SIGINT, then wait (kill after ``timeout`` s); returns the exit code."""
     if proc.poll() is None:
         proc.send_signal(signal.SIGINT)
         try:
-            proc.wait(5.0)
+            proc.wait(timeout)
         except subprocess.TimeoutExpired:
             proc.kill()
             proc.wait()
+    return proc.returncode
 
 
 def namespaced_file(params_file: Path, ns: str, path: Path) -> Path:
@@ -79,23 +82,23 @@ def run_over_ros(law: str, params_file: Path, out: Path, timeout: float) -> dict
     node_file = namespaced_file(params_file, ns, out / "parameters.yaml")
     ros_args = ["--ros-args", "-r", f"__ns:={ns}", "-r", f"/clock:={ns}/clock", "-r", f"/diagnostics:={ns}/diagnostics"]
     commands = {
-        "simulated_joint": _module("simulated_joint_node", *ros_args, "--params-file", str(node_file),
-                                   "-p", "lock_step:=true"),
-        "controller": _module("controller_node", *ros_args, "--params-file", str(node_file),
-                              "-p", "use_sim_time:=true", "-p", f"law:={law}"),
+        "simulated_joint": module("simulated_joint_node", *ros_args, "--params-file", str(node_file),
+                                  "-p", "lock_step:=true"),
+        "controller": module("controller_node", *ros_args, "--params-file", str(node_file),
+                             "-p", "use_sim_time:=true", "-p", f"law:={law}"),
     }
     record = out / f"{law}.npz"
     procs = {}
     try:
         for name, cmd in commands.items():
             procs[name] = subprocess.Popen(cmd, stdout=open(out / f"{law}.{name}.log", "w"), stderr=subprocess.STDOUT)
-        player = subprocess.run(_module("scenario_player", "--config", str(params_file), "--scenario", SCENARIO,
-                                        "--timeout", str(timeout), "--out", str(record), *ros_args),
+        player = subprocess.run(module("scenario_player", "--config", str(params_file), "--scenario", SCENARIO,
+                                       "--timeout", str(timeout), "--out", str(record), *ros_args),
                                 stdout=open(out / f"{law}.player.log", "w"), stderr=subprocess.STDOUT,
                                 timeout=timeout + 30.0)
     finally:
         for proc in procs.values():
-            _stop(proc)
+            stop(proc)
     if player.returncode != 0:
         raise DemoError(f"{law}: the scenario player failed (exit {player.returncode}); see {out}/{law}.*.log")
     with np.load(record) as data:

@@ -21,7 +21,6 @@ Each run takes a few seconds of wall time (2 s of sim time); the player gives up
 import argparse
 import dataclasses
 import os
-import signal
 import subprocess
 import sys
 
@@ -48,18 +47,6 @@ def _environ(pid: int) -> dict:
     """Environment of a running child process (Linux /proc)."""
     raw = open(f"/proc/{pid}/environ", "rb").read().split(b"\0")
     return dict(item.decode().split("=", 1) for item in raw if b"=" in item)
-
-
-def _stop(proc) -> int:
-    """SIGINT, then wait (kill after 10 s); returns the exit code."""
-    if proc.poll() is None:
-        proc.send_signal(signal.SIGINT)
-        try:
-            proc.wait(10.0)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
-    return proc.returncode
 
 
 def run_over_ros(law: str, folder) -> simulate.SimResult:
@@ -91,7 +78,7 @@ def run_over_ros(law: str, folder) -> simulate.SimResult:
         finally:
             rclpy.shutdown()
     finally:
-        codes = {name: _stop(proc) for name, proc in procs.items()}
+        codes = {name: demo.stop(proc, 10.0) for name, proc in procs.items()}
     assert all(code == 0 for code in codes.values()), f"exit codes {codes}; logs in {folder}"
     with np.load(folder / f"{law}.npz") as data:
         return demo.as_result({k: data[k] for k in data.files}, DT)
