@@ -27,6 +27,7 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) benchmarks/simulator_speed.py
+	$(PY) benchmarks/node_latency.py
 
 clean:
 	rm -rf $(VENV) results .pytest_cache
