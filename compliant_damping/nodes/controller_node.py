@@ -18,7 +18,8 @@ Services (std_srvs/Trigger): ``~/stop`` (safe mode now), ``~/reset_fault`` (refu
 reason: not active, no fresh joint state, or the safety filter's reason).
 
 Lifecycle: configure builds everything from the parameters; activate arms the watchdog (a timer
-at control_rate on the node clock, so sim time in lock step) and starts answering joint states;
+on the node clock, so sim time in lock step, restarted by every accepted joint state: it fires
+only after watchdog_timeout of silence, then at control_rate while the torque ramps down) and starts answering joint states;
 deactivate and shutdown ramp the torque to zero at the slew limit (stamps continue the last
 answered one, so a lock-step joint applies the ramp) and then publish nothing on motor_effort.
 A fault survives deactivate/activate; only ``~/reset_fault`` clears it.
@@ -87,12 +88,13 @@ class ControllerNode(LifecycleNode):
         self._pub_array = (self.create_publisher(Float64MultiArray, "motor_effort_array", 10)
                            if s.array_output else None)
         self._pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
-        self._entities = [self._pub, self._pub_array, self._pub_diag,
+        self._watchdog_period = s.watchdog_timeout
+        self._watchdog = self.create_timer(s.watchdog_timeout, self._on_watchdog)
+        self._entities = [self._watchdog, self._pub, self._pub_array, self._pub_diag,
                           self.create_subscription(JointState, "joint_states", self._on_state,
                                                    qos_profile_sensor_data),
                           self.create_subscription(JointState, "link_reference", self._on_reference,
                                                    QoSProfile(depth=1000)),
-                          self.create_timer(self.ticks.period, self._on_watchdog),
                           self.create_timer(0.5, self._on_diagnostics),
                           self.create_service(Trigger, "~/stop", self._on_stop),
                           self.create_service(Trigger, "~/reset_fault", self._on_reset)]
@@ -106,6 +108,7 @@ class ControllerNode(LifecycleNode):
             c.arm(now)
         self.ticks = codec.TickClock(self.ticks.period)
         self._hold = [None] * len(self.bank)
+        self._feed_watchdog(self.setup.watchdog_timeout)
         self.active = True
         return TransitionCallbackReturn.SUCCESS
 
@@ -162,6 +165,7 @@ class ControllerNode(LifecycleNode):
                 for j, (c, s) in enumerate(zip(self.bank, samples))]
         self._answered = stamp
         self._publish(taus, msg.header.stamp)
+        self._feed_watchdog(self.setup.watchdog_timeout)
 
     def _reference(self, j, sample, ref):
         if ref is not None:
@@ -176,12 +180,22 @@ class ControllerNode(LifecycleNode):
             self.get_logger().warning(f"link reference rejected: {reason}", throttle_duration_sec=1.0)
 
     def _on_watchdog(self):
+        """Fires only after watchdog_timeout without a joint state; then every control period
+        (trip, ramp the torque down) until joint states come back."""
         if not self.active:
             return
         taus = [c.watchdog(self._now(), self.setup.watchdog_timeout, self.ticks.period) for c in self.bank]
         if any(t is not None for t in taus):
             self._publish([c.safety.last_torque if t is None else t for c, t in zip(self.bank, taus)],
                           self.get_clock().now().to_msg())
+        self._feed_watchdog(self.ticks.period)
+
+    def _feed_watchdog(self, period: float):
+        """Restart the watchdog timer with ``period`` (s): idle between joint states, no polling."""
+        if period != self._watchdog_period:
+            self._watchdog.timer_period_ns = round(period * 1e9)
+            self._watchdog_period = period
+        self._watchdog.reset()
 
     def _on_diagnostics(self):
         mode = "active" if self.active else "inactive"
