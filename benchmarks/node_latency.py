@@ -144,7 +144,7 @@ def controller_fault(node, deadline: float) -> str | None:
     """The controller's diagnostics (remapped into its namespace): a fault message, or None when all OK."""
     heard = []
     node.create_subscription(DiagnosticArray, "diagnostics", heard.append, 10)
-    scenario_player._spin_until(node, lambda: heard, deadline)
+    scenario_player.spin_until(node, lambda: heard, deadline)
     if not heard:
         return "no diagnostics heard"
     bad = [s.message for s in heard[-1].status if s.level != DiagnosticStatus.OK]
@@ -196,11 +196,11 @@ def measure(kind: str, k: int, args, ctrl, out: Path) -> dict:
             deadline = time.monotonic() + START_TIMEOUT
             if kind == "controller":
                 for step in (Transition.TRANSITION_CONFIGURE, Transition.TRANSITION_ACTIVATE):
-                    if not scenario_player._transition(node, step, deadline):
+                    if not scenario_player.transition(node, step, deadline):
                         raise RuntimeError(f"controller: lifecycle transition {step} failed; see {log}")
             matched = lambda: (driver.pub.get_subscription_count() > 0  # noqa: E731
                                and node.count_publishers("motor_effort") > 0)
-            if not scenario_player._spin_until(node, matched, deadline):
+            if not scenario_player.spin_until(node, matched, deadline):
                 raise RuntimeError(f"{kind}: not connected after {START_TIMEOUT} s; see {log}")
             driver.start_spinning()
             warm = 0

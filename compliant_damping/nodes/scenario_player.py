@@ -89,7 +89,8 @@ class ScenarioPlayer:
         return out
 
 
-def _spin_until(node, condition, deadline: float) -> bool:
+def spin_until(node, condition, deadline: float) -> bool:
+    """Spin ``node`` until ``condition()`` holds (True) or the monotonic ``deadline`` passes (False)."""
     while not condition():
         if time.monotonic() > deadline:
             return False
@@ -97,12 +98,13 @@ def _spin_until(node, condition, deadline: float) -> bool:
     return True
 
 
-def _transition(node, transition_id: int, deadline: float) -> bool:
+def transition(node, transition_id: int, deadline: float) -> bool:
+    """Ask the controller in ``node``'s namespace for a lifecycle transition; True when it succeeded."""
     client = node.create_client(ChangeState, f"{node.get_namespace().rstrip('/')}/{config.CONTROLLER_NODE}/change_state")
-    if not _spin_until(node, client.service_is_ready, deadline):
+    if not spin_until(node, client.service_is_ready, deadline):
         return False
     future = client.call_async(ChangeState.Request(transition=Transition(id=transition_id)))
-    return _spin_until(node, future.done, deadline) and future.result().success
+    return spin_until(node, future.done, deadline) and future.result().success
 
 
 def play(node, args) -> int:
@@ -114,27 +116,27 @@ def play(node, args) -> int:
     player = ScenarioPlayer(node, scenario, ctrl_setup, sim_setup, args.lead)
     deadline = time.monotonic() + args.timeout
     log = node.get_logger()
-    if not _transition(node, Transition.TRANSITION_CONFIGURE, deadline):
+    if not transition(node, Transition.TRANSITION_CONFIGURE, deadline):
         log.error("could not configure the controller")
         return 1
-    if not _spin_until(node, lambda: player.reference.get_subscription_count() > 0, deadline):
+    if not spin_until(node, lambda: player.reference.get_subscription_count() > 0, deadline):
         log.error("the controller does not listen on link_reference")
         return 1
     heard = lambda: 0 in player.states and node.count_publishers("motor_effort") > 0  # noqa: E731
-    if not _spin_until(node, heard, deadline):  # the joint repeats its first state until answered
+    if not spin_until(node, heard, deadline):  # the joint repeats its first state until answered
         log.error("no first joint state, or no controller publishing motor_effort")
         return 1
     player.streaming = True
     player.send_ahead(0)  # stamped samples wait in the controller until their time
-    if not _transition(node, Transition.TRANSITION_ACTIVATE, deadline):
+    if not transition(node, Transition.TRANSITION_ACTIVATE, deadline):
         log.error("could not activate the controller")
         return 1
     done = lambda: all(k in player.states for k in range(ticks)) and max(player.efforts, default=-1) >= ticks - 1  # noqa: E731
-    if not _spin_until(node, done, deadline):
+    if not spin_until(node, done, deadline):
         log.error(f"run incomplete after {args.timeout} s: {len(player.states)} of {ticks} states")
         return 1
     np.savez(args.out, joint_names=np.array(ctrl_setup.joint_names), **player.arrays(ticks))
-    _transition(node, Transition.TRANSITION_DEACTIVATE, time.monotonic() + 5.0)  # safe state, loop at rest
+    transition(node, Transition.TRANSITION_DEACTIVATE, time.monotonic() + 5.0)  # safe state, loop at rest
     return 0
 
 
