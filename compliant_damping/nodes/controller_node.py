@@ -113,7 +113,7 @@ class ControllerNode(LifecycleNode):
         return TransitionCallbackReturn.SUCCESS
 
     def on_deactivate(self, state):
-        self._go_quiet()
+        self.go_quiet()
         return TransitionCallbackReturn.SUCCESS
 
     def on_cleanup(self, state):
@@ -121,11 +121,11 @@ class ControllerNode(LifecycleNode):
         return TransitionCallbackReturn.SUCCESS
 
     def on_shutdown(self, state):
-        self._go_quiet()
+        self.go_quiet()
         self._destroy()
         return TransitionCallbackReturn.SUCCESS
 
-    def _go_quiet(self):
+    def go_quiet(self):
         """Command the safe state: torque ramps to zero at the slew limit (bounded by watchdog_timeout), then silence."""
         if not self.active:
             return
@@ -275,7 +275,7 @@ class ControllerNode(LifecycleNode):
 
 
 def main(args=None) -> int:
-    return spin.run(ControllerNode, args)
+    return spin.run(ControllerNode, args, on_exit=ControllerNode.go_quiet)
 
 
 if __name__ == "__main__":
