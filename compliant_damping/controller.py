@@ -31,9 +31,10 @@ class JointController:
     """Law + safety filter for one joint, with bumpless law switching and gain ramps."""
 
     def __init__(self, law: str, model: NominalModel, gains: Gains, limits: Limits,
-                 safe_mode: str = "zero_torque"):
+                 safe_mode: str = "zero_torque", torque_sensor: bool = False):
         check_gains(law, gains)
         self.law_name, self.model, self.gains = law, model, gains
+        self.torque_sensor = torque_sensor  # laws take the spring torque from the reading (laws.make_law)
         self.safety = SafetyFilter(limits, safe_mode)
         self._runner: LawRunner | None = None   # built on the first good reading
         self._ramp = None                       # (from gains, start time s, duration s)
@@ -56,7 +57,7 @@ class JointController:
         if self.safety.fault is None and s.is_finite():
             gains = self._apply_ramp(t)
             if self._runner is None:
-                self._runner = LawRunner(make_law(self.law_name, self.model, gains), s, ref,
+                self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s, ref,
                                          previous_torque=self.safety.last_torque)
             tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
         elif self.safety.fault is not None:
@@ -118,7 +119,7 @@ class JointController:
 
     def _rebuild(self, gains: Gains):
         """Swap the running law's gains, keeping its states when their number is unchanged."""
-        law = make_law(self.law_name, self.model, gains)
+        law = make_law(self.law_name, self.model, gains, self.torque_sensor)
         if law.n_states != self._runner.law.n_states:
             self._runner = None  # re-initialised bumpless on this tick
             return
@@ -127,4 +128,5 @@ class JointController:
 
 def bank(setup) -> list:
     """One JointController per joint of a :class:`config.ControllerSetup`."""
-    return [JointController(setup.law, j.model, j.gains, j.limits, setup.safe_mode) for j in setup.joints]
+    sensor = setup.spring_torque_source == "effort"
+    return [JointController(setup.law, j.model, j.gains, j.limits, setup.safe_mode, sensor) for j in setup.joints]

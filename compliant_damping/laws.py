@@ -22,7 +22,8 @@ Laws (see DEVELOPERS.md for the derivations):
     keeps the joint's shape, M q'' = k (eta - q) + u1 - g(q), B eta'' = k (q - eta) + u2,
     with u2 = g(q_d) - K (eta - eta_d) - D (eta' - eta_d'), eta_d = q_d + g(q_d)/k.
     Derivatives of u1 use the model-based link acceleration and jerk
-    q''_m = (k (theta - q) - g(q))/M,  q'''_m = (k (theta' - q') - g'(q) q')/M.
+    q''_m = (k (theta - q) - g(q))/M,  q'''_m = (k (theta' - q') - g'(q) q')/M
+    (with a torque sensor, spring_torque_source: effort, q''_m = (tau_s - g(q))/M).
 
     * link_damping: u1 = -D_l q' (needs the link jerk: the reference design).
     * decoupled_damper: the damper sits behind a virtual spring k_v,
@@ -95,9 +96,10 @@ class Law:
     name = "zero"
     n_states = 0
 
-    def __init__(self, model: NominalModel, gains: Gains):
+    def __init__(self, model: NominalModel, gains: Gains, torque_sensor: bool = False):
         self.model = model
         self.gains = gains
+        self.torque_sensor = torque_sensor  # take the spring torque from the reading's tau_s
 
     def output(self, s: JointSample, ref, z) -> float:
         return 0.0
@@ -136,7 +138,8 @@ class _Transformed(Law):
     def output(self, s, ref, z):
         m = self.model
         k, M, B = m.spring_stiffness, m.link_inertia, m.motor_inertia
-        ddq = (k * (s.theta - s.q) - m.gravity(s.q)) / M
+        spring = s.tau_s if self.torque_sensor else k * (s.theta - s.q)
+        ddq = (spring - m.gravity(s.q)) / M
         dddq = (k * (s.dtheta - s.dq) - m.gravity_slope(s.q) * s.dq) / M
         u1, du1, ddu1 = self.link_input(s, ref, z, ddq, dddq)
         eta, deta = s.theta - u1 / k, s.dtheta - du1 / k
@@ -217,10 +220,15 @@ def check_gains(name: str, gains: Gains) -> None:
         raise ValueError(f"link_damping: {name} needs a positive damper (got {gains.link_damping})")
 
 
-def make_law(name: str, model: NominalModel, gains: Gains) -> Law:
-    """Build the law called ``name`` (one of LAW_NAMES)."""
+def make_law(name: str, model: NominalModel, gains: Gains, torque_sensor: bool = False) -> Law:
+    """Build the law called ``name`` (one of LAW_NAMES).
+
+    torque_sensor: the model-based link acceleration uses the measured spring torque
+    (``JointSample.tau_s``; a NaN reading then yields a NaN torque, which the safety filter
+    refuses) instead of ``k (theta - q)``; it then also sees a progressive spring's stiffening.
+    """
     check_gains(name, gains)
-    return _LAWS[name](model, gains)
+    return _LAWS[name](model, gains, torque_sensor)
 
 
 class LawRunner:

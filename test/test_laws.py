@@ -10,9 +10,10 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from compliant_damping import analysis, config, model, scenarios, simulate
-from compliant_damping.controller import JointController
+from compliant_damping.controller import JointController, bank
 from compliant_damping.laws import NominalModel, make_law
 from compliant_damping.references import Constant
+from compliant_damping.sample import JointSample
 from compliant_damping.safety import Limits
 from compliant_damping.scenarios import Scenario
 
@@ -155,3 +156,34 @@ def test_mismatched_model_still_settles(law, capsys):
                     f"zeta {res.least_damped.damping_ratio:.3f}, dominant decay {res.dominant.decay_rate:5.1f} 1/s")
     with capsys.disabled():
         print("\n" + "\n".join(rows))
+
+
+def _impact_torques(plant, torque_sensor):
+    ctrl = JointController("decoupled_damper", JOINT.model, GAINS, WIDE, torque_sensor=torque_sensor)
+    sj = dataclasses.replace(SIM_JOINT, plant=plant)
+    run = simulate.simulate([sj], [ctrl], scenarios.make("end_stop_impact", [sj]))
+    assert ctrl.fault is None
+    return run.tau_m[:, 0]
+
+
+def test_torque_sensor_reading_equals_deflection_for_a_linear_undamped_spring():
+    """Reference: Hooke's law. With a linear spring without damping, the ideal torque reading is
+    tau_s = k (theta - q) exactly, so the law reading the spring torque (spring_torque_source:
+    effort) commands what the deflection-based law commands, to round-off. With the bench joint's
+    spring damping d_s the reading carries d_s (theta' - q') too, and the commands must differ."""
+    linear = dataclasses.replace(SIM_JOINT.plant, spring_damping=0.0, spring_cubic=0.0)
+    assert linear.spring_stiffness == JOINT.model.spring_stiffness  # nominal k = plant k in the bundled file
+    assert np.max(np.abs(_impact_torques(linear, True) - _impact_torques(linear, False))) < 1e-9
+    damped = dataclasses.replace(linear, spring_damping=0.05)
+    assert np.max(np.abs(_impact_torques(damped, True) - _impact_torques(damped, False))) > 1e-4
+
+
+def test_torque_sensor_without_a_reading_trips_the_safety_filter():
+    """A law told to read the spring torque refuses a reading without one (NaN): the filter trips
+    and the command stays zero; the bundled file's ``spring_torque_source`` selects the reading."""
+    ctrl = JointController("link_damping", JOINT.model, GAINS, WIDE, torque_sensor=True)
+    assert ctrl.step(JointSample(0.0, 0.0, 0.0, 0.0), (0.0, 0.0, 0.0), 0.0, 1e-3) == 0.0
+    assert "non-finite torque" in ctrl.fault
+    params = config.node_parameters(config.read(config.bundled()), config.CONTROLLER_NODE)
+    setup = config.controller_setup({**params, "spring_torque_source": "effort"})
+    assert [c.torque_sensor for c in bank(setup)] == [True] and not bank(CTRL)[0].torque_sensor
