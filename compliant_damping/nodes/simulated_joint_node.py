@@ -20,8 +20,9 @@ config.sim_setup, e.g. ``ros2 param set /simulated_joint knee.stop_upper 0.5``; 
 
 Modes:
 
-* real time (``lock_step: false``): a timer at state_rate advances one period and publishes;
-  sensor-data QoS (best effort, keep last 5).
+* real time (``lock_step: false``): a timer at state_rate advances the plant to the node clock
+  (whole periods; a late tick catches up, up to MAX_CATCH_UP periods) and publishes the newest
+  state, stamped with the plant's time; sensor-data QoS (best effort, keep last 5).
 * lock step (``lock_step: true``): sim time starts at 0; the first state and /clock go out at
   start; each ``motor_effort`` whose header.stamp equals the last state's stamp advances exactly
   one period (other commands are ignored) and /clock and the new state go out. Reliable QoS,
@@ -49,6 +50,7 @@ from ..plant import Plant
 from . import params, spin
 
 REPEAT_AFTER = 0.2  # s of wall time without an answering command before the state is sent again
+MAX_CATCH_UP = 20  # periods a late real-time tick may advance at once
 
 
 def _ns(stamp) -> int:
@@ -79,6 +81,7 @@ class SimulatedJointNode(Node):
             self.create_timer(REPEAT_AFTER, self._on_repeat, clock=Clock(clock_type=ClockType.STEADY_TIME))
             self._publish()
         else:
+            self._start_ns = self.get_clock().now().nanoseconds  # plant time 0 on the node clock
             self.create_timer(self.plant.period, self._on_tick)
 
     def _state_time(self) -> float:
@@ -100,8 +103,21 @@ class SimulatedJointNode(Node):
         self._latest = [old if t is None else (t, now) for t, old in zip(taus, self._latest)]
 
     def _on_tick(self):
+        """Advance the plant to the node clock in whole periods, then publish the newest state.
+
+        A late timer (a busy machine) costs joint-state messages, not physics: the plant keeps
+        real time. A backlog beyond MAX_CATCH_UP periods (a stalled process) is dropped.
+        """
+        due = (self.get_clock().now().nanoseconds - self._start_ns) // self._period_ns - self.plant.ticks
+        if due > MAX_CATCH_UP:
+            self._start_ns += (due - MAX_CATCH_UP) * self._period_ns
+            due = MAX_CATCH_UP
+        if due <= 0:
+            return
         now, timeout = self._state_time(), self.setup.command_timeout
-        self.plant.advance([tau if now - t <= timeout else 0.0 for tau, t in self._latest])
+        torques = [tau if now - t <= timeout else 0.0 for tau, t in self._latest]
+        for _ in range(due):
+            self.plant.advance(torques)
         self._publish()
 
     def _on_repeat(self):
@@ -144,8 +160,9 @@ class SimulatedJointNode(Node):
             ns = self.plant.ticks * self._period_ns
             stamp = Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
             self._clock_pub.publish(ClockMsg(clock=stamp))
-        else:
-            stamp = self.get_clock().now().to_msg()
+        else:  # the plant's time on the node clock
+            ns = self._start_ns + self.plant.ticks * self._period_ns
+            stamp = Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
         name, pos, vel, eff = codec.encode_states(self.setup.joint_names, self.plant.readings, self.plant.applied)
         msg = JointState(name=name, position=pos, velocity=vel, effort=eff)
         msg.header.stamp = stamp
