@@ -51,17 +51,17 @@ class JointController:
     def step(self, s: JointSample, ref, t: float, dt: float) -> float:
         """Motor torque command (N m) for reading ``s``, reference ``ref`` = (q_d, q_d', q_d''), at ``t``."""
         self.last_reading_time = t
-        tau = float("nan")
-        if self.safety.fault is None and s.is_finite() and not all(math.isfinite(v) for v in ref):
-            self.safety.trip("non-finite reference")  # laws cannot take it (math.sin(inf) raises)
+        tau = float("nan")  # in fault or on a bad reading the filter commands the safe torque
         if self.safety.fault is None and s.is_finite():
-            gains = self._apply_ramp(t)
-            if self._runner is None:
-                self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s, ref,
-                                         previous_torque=self.safety.last_torque)
-            tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
-        elif self.safety.fault is not None:
-            tau = 0.0  # ignored: in fault the filter commands the safe torque
+            q_d, dq_d, ddq_d = ref
+            if not (math.isfinite(q_d) and math.isfinite(dq_d) and math.isfinite(ddq_d)):
+                self.safety.trip("non-finite reference")  # laws cannot take it (math.sin(inf) raises)
+            else:
+                gains = self._apply_ramp(t)
+                if self._runner is None:
+                    self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s,
+                                             ref, previous_torque=self.safety.last_torque)
+                tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
         return self.safety.filter(s, tau, dt)
 
     def watchdog(self, t: float, timeout: float, dt: float) -> float | None:
