@@ -1,6 +1,7 @@
 """One joint's controller: the chosen law, then the safety filter. Nothing else sends torque.
 
-Used tick by tick by the offline simulator and the ROS controller node alike.
+Used tick by tick by the offline simulator and the ROS controller node alike. Times are the
+stamp times of the readings (s): the safety filter makes them monotonic for the slew limit.
 """
 from __future__ import annotations
 
@@ -8,8 +9,10 @@ import math
 from dataclasses import fields
 
 from .laws import Gains, LawRunner, NominalModel, check_gains, make_law
-from .safety import Limits, SafetyFilter
+from .safety import Fault, FaultCode, Limits, SafetyFilter, motor_accel_bound
 from .sample import JointSample
+
+__all__ = ["JointController", "blend_gains", "bank"]
 
 
 def blend_gains(old: Gains, new: Gains, w: float, motor_inertia: float) -> Gains:
@@ -28,62 +31,84 @@ def blend_gains(old: Gains, new: Gains, w: float, motor_inertia: float) -> Gains
 
 
 class JointController:
-    """Law + safety filter for one joint, with bumpless law switching and gain ramps."""
+    """Law + safety filter for one joint, with bumpless law switching and gain ramps.
+
+    Parameters
+    ----------
+    law : str
+        One of laws.LAW_NAMES.
+    model : NominalModel
+    gains : Gains
+    limits : Limits
+    safe_mode : str
+        One of safety.SAFE_MODES.
+    torque_sensor : bool
+        The laws take the spring torque from the reading (laws.make_law).
+    period : float
+        Nominal control period (s), for the safety filter's slew budget.
+    """
 
     def __init__(self, law: str, model: NominalModel, gains: Gains, limits: Limits,
-                 safe_mode: str = "zero_torque", torque_sensor: bool = False):
+                 safe_mode: str = "zero_torque", torque_sensor: bool = False, period: float = 1e-3):
         check_gains(law, gains)
         self.law_name, self.model, self.gains = law, model, gains
-        self.torque_sensor = torque_sensor  # laws take the spring torque from the reading (laws.make_law)
-        self.safety = SafetyFilter(limits, safe_mode)
+        self.torque_sensor = torque_sensor
+        self.safety = SafetyFilter(limits, safe_mode, period, self._accel_bound(limits))
         self._runner: LawRunner | None = None   # built on the first good reading
         self._ramp = None                       # (from gains, start time s, duration s)
-        self.last_reading_time: float | None = None
 
     @property
-    def fault(self) -> str | None:
+    def fault(self) -> Fault | None:
         return self.safety.fault
 
-    def arm(self, t: float) -> None:
-        """Start the watchdog clock at ``t`` (s), e.g. on activation."""
-        self.last_reading_time = t
+    @property
+    def last_torque(self) -> float:
+        """The last command sent (N m)."""
+        return self.safety.last_torque
+
+    def _accel_bound(self, limits: Limits) -> float:
+        return motor_accel_bound(limits, self.model.motor_inertia, self.model.spring_stiffness)
 
     def step(self, s: JointSample, ref, t: float, dt: float) -> float:
-        """Motor torque command (N m) for reading ``s``, reference ``ref`` = (q_d, q_d', q_d''), at ``t``."""
-        self.last_reading_time = t
-        tau = float("nan")  # in fault or on a bad reading the filter commands the safe torque
+        """Motor torque command (N m) for reading ``s``, reference ``ref`` = (q_d, q_d', q_d''), at stamp time ``t``.
+
+        ``dt`` (s) advances the law's states; the slew limit counts stamp time (safety.SafetyFilter).
+        """
+        tau = None  # in fault or on a bad reading the filter commands the safe torque
         if self.safety.fault is None and s.is_finite():
             q_d, dq_d, ddq_d = ref
             if not (math.isfinite(q_d) and math.isfinite(dq_d) and math.isfinite(ddq_d)):
-                self.safety.trip("non-finite reference")  # laws cannot take it (math.sin(inf) raises)
+                # laws cannot take it (math.sin(inf) raises)
+                self.safety.trip(Fault(FaultCode.NON_FINITE_REFERENCE, "non-finite reference"))
             else:
                 gains = self._apply_ramp(t)
                 if self._runner is None:
                     self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s,
                                              ref, previous_torque=self.safety.last_torque)
                 tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
-        return self.safety.filter(s, tau, dt)
+        return self.safety.filter(s, tau, t)
 
-    def watchdog(self, t: float, timeout: float, dt: float) -> float | None:
-        """Safe command (N m) when no reading came for ``timeout`` s, else None (keep ticking on readings)."""
-        if self.last_reading_time is None or t - self.last_reading_time <= timeout:
-            return None
-        self.safety.trip(f"watchdog: no joint state for {t - self.last_reading_time:.3f} s")
-        return self.safety.ramp_down(dt)
+    def ramp_down(self, t: float) -> float:
+        """Command (N m) at stamp time ``t`` without a fresh reading: towards zero at the slew limit."""
+        return self.safety.ramp_down(t)
+
+    def trip(self, fault: Fault) -> None:
+        """Enter safe mode now with ``fault`` (the watchdog, a stopped clock, a command conflict)."""
+        self.safety.trip(fault)
 
     def stop(self, reason: str = "stop requested") -> None:
-        """Enter safe mode now."""
-        self.safety.trip(reason)
+        """Enter safe mode now on request."""
+        self.safety.trip(Fault(FaultCode.STOP_REQUESTED, reason))
 
-    def reset(self) -> str | None:
-        """Leave safe mode if the last reading is within limits (returns the reason if not).
+    def reset(self) -> Fault | None:
+        """Leave safe mode if the last reading is within limits (returns the fault that stays, if any).
 
         The law restarts from the measured state, bumpless from the last command.
         """
-        reason = self.safety.reset()
-        if reason is None:
+        fault = self.safety.reset()
+        if fault is None:
             self._runner = None
-        return reason
+        return fault
 
     def switch_law(self, law: str, gains: Gains | None = None) -> None:
         """Change law (and gains) at once, bumpless: states restart to reproduce the last command."""
@@ -103,6 +128,7 @@ class JointController:
     def set_limits(self, limits: Limits) -> None:
         """New safety limits from the next tick (a lowered torque limit applies at once)."""
         self.safety.limits = limits
+        self.safety.accel_bound = self._accel_bound(limits)
 
     def _apply_ramp(self, t) -> Gains:
         """Gains in effect at ``t`` (s); a running law follows the ramp, a new one starts on it."""
@@ -129,4 +155,5 @@ class JointController:
 def bank(setup) -> list:
     """One JointController per joint of a :class:`config.ControllerSetup`."""
     sensor = setup.spring_torque_source == "effort"
-    return [JointController(setup.law, j.model, j.gains, j.limits, setup.safe_mode, sensor) for j in setup.joints]
+    return [JointController(setup.law, j.model, j.gains, j.limits, setup.safe_mode, sensor, 1.0 / setup.control_rate)
+            for j in setup.joints]

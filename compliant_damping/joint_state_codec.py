@@ -9,9 +9,21 @@ side, effort = applied motor torque).
 from __future__ import annotations
 
 import bisect
+import enum
 import math
+from dataclasses import dataclass
 
 from .sample import JointSample
+
+__all__ = ["Rejection", "StateDecoder", "encode_states", "pick_values", "ReferenceSchedule", "Stamp",
+           "StampOrder", "TickClock"]
+
+
+@dataclass(frozen=True)
+class Rejection:
+    """Why a message was not used (for people; counted by its receiver)."""
+
+    reason: str
 
 
 def _finite(values) -> bool:
@@ -29,14 +41,14 @@ class StateDecoder:
         self._entries = [(j.link_state, j.motor_state) for j in joints]
         self._from_effort = spring_torque_from_effort
         self.rejected = 0
-        self.last_reason: str | None = None
+        self.last_rejection: Rejection | None = None
 
     def decode(self, names, position, velocity, effort):
-        """List of JointSample in joint order, or the reason (str) why the message is rejected."""
+        """List of JointSample in joint order, or the :class:`Rejection` of the message."""
         result = self._decode(list(names), position, velocity, effort)
         if isinstance(result, str):
             self.rejected += 1
-            self.last_reason = result
+            self.last_rejection = result = Rejection(result)
         return result
 
     def _decode(self, names, position, velocity, effort):
@@ -58,7 +70,7 @@ class StateDecoder:
             if self._from_effort:
                 values.append(effort[i])
             if not _finite(values):
-                return f"non-finite value for {link!r}/{motor!r}: {values}"
+                return f"non-finite value for {link!r}/{motor!r}"
             samples.append(JointSample(*values[:4], values[4] if self._from_effort else math.nan))
         return samples
 
@@ -75,48 +87,76 @@ def encode_states(joint_names, readings, applied):
 
 
 def pick_values(names, values, wanted):
-    """Value per name in ``wanted`` (None where absent), or a reason (str) for a malformed or non-finite message."""
+    """Value per name in ``wanted`` (None where absent), or the :class:`Rejection` of a malformed message."""
     if len(values) != len(names):
-        return f"{len(names)} names but {len(values)} values"
+        return Rejection(f"{len(names)} names but {len(values)} values")
+    if len(set(names)) != len(names):
+        return Rejection("repeated names")
     index = dict(zip(names, values))
     out = [index.get(w) for w in wanted]
-    if not _finite(v for v in out if v is not None):
-        return f"non-finite value in {list(zip(wanted, out))}"
+    bad = [w for w, v in zip(wanted, out) if v is not None and not math.isfinite(v)]
+    if bad:
+        return Rejection(f"non-finite value for {', '.join(bad)}")
     return out
 
 
 class ReferenceSchedule:
-    """Link references (q_d, q_d', q_d'') per joint that take effect at their stamp.
+    """Link references (q_d, q_d', q_d'') per joint that take effect at their stamp, checked against limits.
 
     A reference stamped zero (or in the past) applies at the next tick; a future stamp
     applies from the first tick at or after it, so a scenario can be streamed ahead of time.
+    Each message is checked against the joints' ``safety.Limits`` (``limits``): a speed beyond
+    the link speed limit refuses the whole message; a position outside the position limits is
+    clipped to the nearer limit. Both are counted (``rejected``, ``clipped``) with the last
+    reason (``last_issue``). The message carries no acceleration, so none is checked.
     """
 
-    def __init__(self, joint_names, max_pending: int = 10000):
+    def __init__(self, joint_names, limits, max_pending: int = 10000):
         self._names = list(joint_names)
+        self.limits = list(limits)
         self._pending: list = []   # sorted (stamp s, sequence, {joint index: ref})
         self._seq = 0
         self._max = max_pending
         self.current = [None] * len(self._names)
+        self.rejected = self.clipped = 0
+        self.last_issue: Rejection | None = None
 
     def __len__(self) -> int:
         """Number of references waiting for their stamp."""
         return len(self._pending)
 
-    def add(self, stamp: float, names, position, velocity):
-        """Queue one message; returns a reason (str) when it is malformed, else None."""
+    def add(self, stamp: float, names, position, velocity) -> Rejection | None:
+        """Queue one message; returns its :class:`Rejection` when refused, else None."""
+        result = self._checked(names, position, velocity)
+        if isinstance(result, Rejection):
+            self.rejected += 1
+            self.last_issue = result
+            return result
+        self._seq += 1
+        bisect.insort(self._pending, (stamp, self._seq, result), key=lambda e: (e[0], e[1]))
+        del self._pending[:-self._max]
+        return None
+
+    def _checked(self, names, position, velocity):
         pos = pick_values(names, position, self._names)
         vel = pick_values(names, velocity, self._names) if len(velocity) else [0.0] * len(self._names)
         for got in (pos, vel):
-            if isinstance(got, str):
+            if isinstance(got, Rejection):
                 return got
-        refs = {j: (p, v if v is not None else 0.0, 0.0) for j, (p, v) in enumerate(zip(pos, vel)) if p is not None}
-        if not refs:
-            return "no configured joint named"
-        self._seq += 1
-        bisect.insort(self._pending, (stamp, self._seq, refs), key=lambda e: (e[0], e[1]))
-        del self._pending[:-self._max]
-        return None
+        refs = {}
+        for j, (p, v) in enumerate(zip(pos, vel)):
+            if p is None:
+                continue
+            v, lim = 0.0 if v is None else v, self.limits[j]
+            if abs(v) > lim.link_speed:
+                return Rejection(f"{self._names[j]}: reference speed {v:+.4g} rad/s beyond the "
+                                 f"{lim.link_speed} rad/s link speed limit")
+            inside = min(max(p, lim.position_lower), lim.position_upper)
+            if inside != p:
+                self.clipped += 1
+                self.last_issue = Rejection(f"{self._names[j]}: reference position {p:+.4g} rad clipped to {inside} rad")
+            refs[j] = (inside, v, 0.0)
+        return refs or Rejection("no configured joint named")
 
     def at(self, t: float):
         """Apply everything due at ``t`` (s); returns ``current`` (None where no reference came yet)."""
@@ -125,9 +165,56 @@ class ReferenceSchedule:
                 self.current[j] = ref
         return self.current
 
+    def clear(self) -> None:
+        """Forget the current and pending references (after a reset the law holds the measured position)."""
+        self._pending.clear()
+        self.current = [None] * len(self._names)
+
+
+class Stamp(enum.Enum):
+    """How a joint-state stamp relates to the ones answered before (:class:`StampOrder`)."""
+
+    NEW = "new"
+    REPEATED = "repeated"
+    OLDER = "older"
+    AHEAD = "ahead"
+
+
+class StampOrder:
+    """Classifies joint-state stamps: new, a repeat of the last answered, older, or too far ahead.
+
+    ``ahead_tolerance`` (s): a stamp more than this ahead of the receiver's clock is not used
+    (a driver clock far off, or a forged stamp, would otherwise freeze the slew limit's
+    monotonic time). Unstamped messages (stamp 0) take the receiver's clock.
+    """
+
+    def __init__(self, ahead_tolerance: float):
+        self.ahead_tolerance = ahead_tolerance
+        self.last: float | None = None  # newest answered stamp (s)
+
+    def classify(self, stamp: float, now: float) -> Stamp:
+        """Kind of a message stamped ``stamp`` (s) received at ``now`` (s) on the receiver's clock."""
+        if self.last is not None and stamp == self.last:
+            return Stamp.REPEATED
+        if self.last is not None and stamp < self.last:
+            return Stamp.OLDER
+        if stamp - now > self.ahead_tolerance:
+            return Stamp.AHEAD
+        return Stamp.NEW
+
+    def accept(self, stamp: float) -> None:
+        """``stamp`` (s) was answered: it becomes the last."""
+        self.last = stamp
+
+    def rejection(self, kind: Stamp, stamp: float, now: float) -> Rejection:
+        """The :class:`Rejection` of an OLDER or AHEAD stamp."""
+        if kind is Stamp.OLDER:
+            return Rejection(f"stamp {stamp:.6f} s older than the last answered {self.last:.6f} s")
+        return Rejection(f"stamp {stamp - now:.3f} s ahead of the clock (tolerance {self.ahead_tolerance} s)")
+
 
 class TickClock:
-    """Tick interval from successive stamps (s), clamped to [0.5, 2] periods, with late-tick and rate counts.
+    """Tick interval from successive stamps (s), clamped to [0, 2] periods, with late-tick and rate counts.
 
     A tick is late when its interval exceeds 1.5 periods (common practice for jitter reports).
     """
@@ -149,7 +236,7 @@ class TickClock:
             self._start = t
         else:
             self._count += 1
-        return min(max(raw, 0.5 * self.period), 2.0 * self.period)
+        return min(max(raw, 0.0), 2.0 * self.period)
 
     def rate(self) -> float:
         """Ticks per second since the previous call (0 without two ticks); starts a new window."""

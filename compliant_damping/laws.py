@@ -40,7 +40,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.linalg import expm
 
 from .fields import param
 from .sample import JointSample
@@ -231,18 +230,53 @@ def make_law(name: str, model: NominalModel, gains: Gains, torque_sensor: bool =
     return _LAWS[name](model, gains, torque_sensor)
 
 
+def zoh(a: np.ndarray, b: np.ndarray, dt: float) -> tuple:
+    """Exact zero-order-hold discretisation of z' = A z + b u over ``dt`` s, in closed form.
+
+    Returns (Ad, bd) as nested lists with Ad = exp(A dt) and bd = A^-1 (Ad - I) b. One state:
+    ``Ad = exp(a dt)``, ``bd = b (exp(a dt) - 1) / a``. Two states (Cayley-Hamilton, e.g. Chen,
+    Linear System Theory and Design, on functions of a square matrix): with sigma = tr(A)/2
+    and d = sigma^2 - det(A), ``exp(A dt) = e^(sigma dt) (c I + s (A - sigma I))`` where
+    c, s = cos(w dt), sin(w dt)/w for d = -w^2 < 0 and cosh(w dt), sinh(w dt)/w for d = w^2 >= 0
+    (s -> dt as w -> 0). A fixed cost per call whatever ``dt``; A must be invertible.
+    """
+    n = a.shape[0]
+    if n == 1:
+        rate = float(a[0, 0])
+        decay = math.exp(rate * dt)
+        return [[decay]], [float(b[0]) * math.expm1(rate * dt) / rate]
+    if n != 2:
+        raise ValueError(f"zoh: closed form for one or two states, got {n}")
+    (a11, a12), (a21, a22) = a.tolist()
+    sigma, det = 0.5 * (a11 + a22), a11 * a22 - a12 * a21
+    d = sigma * sigma - det
+    w = math.sqrt(abs(d))
+    if w * dt < 1e-8:
+        c, sh = 1.0, dt
+    elif d < 0.0:
+        c, sh = math.cos(w * dt), math.sin(w * dt) / w
+    else:
+        c, sh = math.cosh(w * dt), math.sinh(w * dt) / w
+    e = math.exp(sigma * dt)
+    ad = [[e * (c + sh * (a11 - sigma)), e * sh * a12], [e * sh * a21, e * (c + sh * (a22 - sigma))]]
+    m1, m2 = ad[0][0] - 1.0, ad[1][1] - 1.0   # (Ad - I) b, then A^-1 by the 2x2 inverse
+    v1, v2 = m1 * b[0] + ad[0][1] * b[1], ad[1][0] * b[0] + m2 * b[1]
+    return ad, [(a22 * v1 - a12 * v2) / det, (-a21 * v1 + a11 * v2) / det]
+
+
 class LawRunner:
     """Runs one law at a fixed or varying tick: output from the current states, then advance them.
 
-    States advance by the exact zero-order-hold solution of z' = A z + b q over
-    the tick (the measured link position held), so a stiff virtual spring stays
-    stable at any tick rate.
+    States advance by the exact zero-order-hold solution of z' = A z + b q over the tick
+    (the measured link position held), computed in closed form (:func:`zoh`) so a tick costs
+    the same whatever the jitter of the stamps. (This keeps the damper's own update exact;
+    whether the closed loop is stable at a given rate is a question for the analysis.)
     """
 
     def __init__(self, law: Law, sample: JointSample, ref=None, previous_torque: float | None = None):
         self.law = law
         self.z = law.initial_state(sample)
-        self._discrete = {}
+        self._matrices = law.state_matrices()
         if previous_torque is not None and law.n_states:
             self.z = self._bumpless_state(sample, ref, previous_torque)
 
@@ -260,29 +294,14 @@ class LawRunner:
 
     def set_law(self, law: Law) -> None:
         """Same law with new gains; states are kept (same number of states)."""
-        self.law, self._discrete = law, {}
+        self.law, self._matrices = law, law.state_matrices()
 
     def step(self, s: JointSample, ref, dt: float) -> float:
         """Torque for this tick (N m); advances the law's states by ``dt`` seconds."""
         tau = self.law.output(s, ref, self.z)
         if self.law.n_states:
-            ad, bd = self._zoh(dt)
+            ad, bd = zoh(*self._matrices, dt)
             z = self.z
             self.z = tuple(sum(ad[i][j] * z[j] for j in range(len(z))) + bd[i] * s.q
                            for i in range(len(z)))
         return tau
-
-    def _zoh(self, dt: float):
-        """Discrete (Ad, bd) for tick ``dt``, cached per dt (gains are fixed per law instance)."""
-        key = max(1, round(dt * 1e6))  # tick quantised to 1 us for the cache
-        if key not in self._discrete:
-            dt = key * 1e-6
-            a, b = self.law.state_matrices()
-            n = a.shape[0]
-            aug = np.zeros((n + 1, n + 1))
-            aug[:n, :n], aug[:n, n] = a * dt, b * dt
-            e = expm(aug)
-            if len(self._discrete) > 64:
-                self._discrete.clear()
-            self._discrete[key] = (e[:n, :n].tolist(), e[:n, n].tolist())
-        return self._discrete[key]

@@ -82,7 +82,7 @@ def sweep_decoupling_stiffness(ctrl_joint, sim_joint, stiffnesses, *, control_dt
     out = []
     for kv in stiffnesses:
         gains = dataclasses.replace(ctrl_joint.gains, decoupling_stiffness=float(kv))
-        ctrl = JointController(LAW, ctrl_joint.model, gains, lim)
+        ctrl = JointController(LAW, ctrl_joint.model, gains, lim, period=control_dt)
         run = simulate.simulate([sim_joint], [ctrl], scenario, control_dt=control_dt, substeps=substeps)
         m = simulate.metrics(run, scenario)[sim_joint.name]
         res = analysis.analyze(sim_joint.plant, make_law(LAW, ctrl_joint.model, gains), sim_joint.initial_position)

@@ -5,12 +5,13 @@ import numpy as np
 import pytest
 
 from compliant_damping import config, model
-from compliant_damping.joint_state_codec import (ReferenceSchedule, StateDecoder, TickClock, encode_states,
-                                                 pick_values)
+from compliant_damping.joint_state_codec import (ReferenceSchedule, Rejection, StateDecoder, Stamp, StampOrder,
+                                                 TickClock, encode_states, pick_values)
 from compliant_damping.plant import Plant
 from compliant_damping.sample import JointSample
 
 CTRL, SIM = config.load(config.bundled())
+JOINT_LIMITS = CTRL.joints[0].limits
 NAMES = ["knee", "knee_motor"]
 
 
@@ -30,14 +31,14 @@ def test_decoder_reads_link_and_motor_entries_in_any_order():
 ])
 def test_decoder_rejects_with_a_reason_and_counts(fields, said):
     dec = StateDecoder(CTRL.joints, spring_torque_from_effort=False)
-    reason = dec.decode(*fields)
-    assert isinstance(reason, str) and said in reason and dec.rejected == 1 and dec.last_reason == reason
+    got = dec.decode(*fields)
+    assert isinstance(got, Rejection) and said in got.reason and dec.rejected == 1 and dec.last_rejection == got
 
 
 def test_effort_source_needs_a_finite_effort():
     dec = StateDecoder(CTRL.joints, spring_torque_from_effort=True)
-    assert "no effort" in dec.decode(NAMES, [0.0, 0.0], [0.0, 0.0], [])
-    assert "non-finite" in dec.decode(NAMES, [0.0, 0.0], [0.0, 0.0], [math.nan, 0.0])
+    assert "no effort" in dec.decode(NAMES, [0.0, 0.0], [0.0, 0.0], []).reason
+    assert "non-finite" in dec.decode(NAMES, [0.0, 0.0], [0.0, 0.0], [math.nan, 0.0]).reason
     plain = StateDecoder(CTRL.joints, spring_torque_from_effort=False)
     assert math.isnan(plain.decode(NAMES, [0.0, 0.0], [0.0, 0.0], [math.nan, 0.0])[0].tau_s)
 
@@ -50,24 +51,48 @@ def test_encode_then_decode_round_trip():
 
 def test_pick_values():
     assert pick_values(["b", "a"], [2.0, 1.0], ["a", "c"]) == [1.0, None]
-    assert "names" in pick_values(["a"], [], ["a"])
-    assert "non-finite" in pick_values(["a"], [math.inf], ["a"])
+    assert "names" in pick_values(["a"], [], ["a"]).reason
+    assert "non-finite" in pick_values(["a"], [math.inf], ["a"]).reason
+    assert "repeated" in pick_values(["a", "a"], [1.0, 2.0], ["a"]).reason
 
 
 def test_reference_schedule_applies_each_reference_at_its_stamp():
-    refs = ReferenceSchedule(["knee"])
+    refs = ReferenceSchedule(["knee"], [JOINT_LIMITS])
     assert refs.add(0.2, ["knee"], [0.5], []) is None and refs.add(0.1, ["knee"], [0.3], [1.0]) is None
     assert refs.at(0.05) == [None] and len(refs) == 2
     assert refs.at(0.1) == [(0.3, 1.0, 0.0)]
     assert refs.at(0.3) == [(0.5, 0.0, 0.0)] and len(refs) == 0
-    assert "no configured joint" in refs.add(0.0, ["hip"], [0.1], [])
-    assert "non-finite" in refs.add(0.0, ["knee"], [math.nan], [])
+    assert "no configured joint" in refs.add(0.0, ["hip"], [0.1], []).reason
+    assert "non-finite" in refs.add(0.0, ["knee"], [math.nan], []).reason
+    refs.clear()
+    assert refs.at(1.0) == [None]
+
+
+def test_reference_schedule_clips_positions_and_refuses_speeds_beyond_the_limits():
+    """The bundled knee: position limits [-1, 1] rad, link speed limit 8 rad/s (one_joint.yaml)."""
+    refs = ReferenceSchedule(["knee"], [JOINT_LIMITS])
+    assert refs.add(0.0, ["knee"], [5.0], [0.0]) is None  # 5 rad: clipped to the upper limit
+    assert refs.at(0.0) == [(JOINT_LIMITS.position_upper, 0.0, 0.0)] and refs.clipped == 1
+    assert "clipped" in refs.last_issue.reason
+    refused = refs.add(0.0, ["knee"], [0.1], [1e6])
+    assert "link speed limit" in refused.reason and refs.rejected == 1 and len(refs) == 0
+    assert refs.at(0.1) == [(JOINT_LIMITS.position_upper, 0.0, 0.0)]  # the refused one changed nothing
+
+
+def test_stamp_order_classifies_repeats_backwards_and_far_ahead():
+    order = StampOrder(ahead_tolerance=0.05)
+    assert order.classify(1.0, 1.0) is Stamp.NEW
+    order.accept(1.0)
+    assert order.classify(1.0, 1.001) is Stamp.REPEATED
+    assert order.classify(0.999, 1.001) is Stamp.OLDER
+    assert order.classify(1.0511, 1.001) is Stamp.AHEAD and order.classify(1.05, 1.001) is Stamp.NEW
+    assert "ahead of the clock" in order.rejection(Stamp.AHEAD, 3.0, 1.0).reason
 
 
 def test_tick_clock_clamps_and_counts_late_ticks():
     clock = TickClock(1e-3)
-    dts = [clock.interval(t) for t in (0.0, 0.001, 0.0015, 0.0055, 0.0065)]
-    assert dts == pytest.approx([1e-3, 1e-3, 0.5e-3, 2e-3, 1e-3])
+    dts = [clock.interval(t) for t in (0.0, 0.001, 0.0011, 0.0055, 0.0065)]
+    assert dts == pytest.approx([1e-3, 1e-3, 0.1e-3, 2e-3, 1e-3])
     assert clock.late == 1
     assert clock.rate() == pytest.approx(4 / 0.0065) and clock.rate() == 0.0
 

@@ -2,45 +2,65 @@
 
 Topics (relative names):
 
-* ``joint_states`` in (sensor_msgs/JointState; best effort, keep last 5, so it pairs with a
-  real-time or a lock-step publisher). Every accepted message is one control tick; dt comes
-  from successive header stamps (arrival times when unstamped), clamped (joint_state_codec).
-  A message that repeats the stamp already answered gets the same command again.
+* ``joint_states`` in (sensor_msgs/JointState; best effort, keep last 1: the newest sample
+  is kept and older ones are dropped, counted from the messages' reception sequence numbers,
+  so a storm cannot build up latency). Every new stamp is one control tick; its stamp is the
+  tick's time (arrival time when unstamped). A message repeating the stamp already answered
+  gets the same command again (a lock-step joint resends its state when no answer came); a
+  stamp older than the last answered, or more than ``watchdog_timeout`` ahead of the node
+  clock, is rejected and counted.
 * ``link_reference`` in (sensor_msgs/JointState: position rad, velocity rad/s per joint name;
   reliable, keep last 1000). ``header.stamp`` is when it takes effect (zero: at once), so a
-  scenario can be streamed ahead. Without one, the reference holds the link position measured
-  on the first tick after activation.
+  scenario can be streamed ahead. Positions outside the position limits are clipped to them;
+  a speed beyond the link speed limit refuses the message (joint_state_codec.ReferenceSchedule,
+  counted in diagnostics). Without one, and after every reset, the reference holds the link
+  position measured on the first tick.
 * ``motor_effort`` out (sensor_msgs/JointState: command names, effort N m; header.stamp = the
   stamp of the joint state answered; reliable, keep last 1000 so a slow recorder loses nothing),
-  ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output), ``/diagnostics`` (2 Hz, one status per joint).
+  ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output),
+  ``/diagnostics`` (2 Hz, one status per joint: mode, fault code and reason, counters).
 
 Services (std_srvs/Trigger): ``~/stop`` (safe mode now), ``~/reset_fault`` (refuses with the
-reason: not active, no fresh joint state, or the safety filter's reason).
+reason: not active, no fresh joint state, or the fault that stays).
 
-Lifecycle: configure builds everything from the parameters; activate arms the watchdog (a timer
-on the node clock, so sim time in lock step, restarted by every accepted joint state: it fires
-only after watchdog_timeout of silence, then at control_rate while the torque ramps down) and starts answering joint states;
-deactivate and shutdown ramp the torque to zero at the slew limit (stamps continue the last
-answered one, so a lock-step joint applies the ramp) and then publish nothing on motor_effort.
-A fault survives deactivate/activate; only ``~/reset_fault`` clears it.
+Safety behaviour (the filter itself is safety.SafetyFilter):
+
+* The slew limit counts stamp time (per joint, made monotonic), not messages.
+* Watchdog (watchdog.Watchdog): armed by the first joint state after activation, it trips
+  after ``watchdog_timeout`` without a new stamp; its timer runs on the steady clock in real
+  time (a jump of the system clock cannot delay it) and on sim time with ``use_sim_time``.
+  With sim time a stopped ``/clock`` is caught on the steady clock (watchdog.ClockStall,
+  after watchdog.stall_timeout). Activation without joint states is reported after
+  WAITING_REPORT s; nothing is commanded until the first one.
+* A second publisher on ``motor_effort`` refuses activation, and trips every joint when it
+  appears later (checked every SUPERVISE_PERIOD s of steady time).
+* Deactivation and shutdown ramp the torque to zero at the slew limit (stamps continue the
+  last answered one, so a lock-step joint applies the ramp), publish the zero, then go quiet.
+  Limits refuse a torque/torque_rate above safety.MAX_RAMP_DOWN, which bounds the ramp.
+* Every fault, refused change and burst of rejected messages is logged once with its reason.
 
 Parameters: config.parameter_specs. At run time ``law``, ``<joint>.gains.*``, ``<joint>.limits.*``,
 ``watchdog_timeout`` and ``gain_ramp_time`` may change (the whole set is validated by
 config.controller_setup; gains ramp in over gain_ramp_time, a law switch is bumpless); the rest
-changes only while unconfigured. ``lock_gains: true`` refuses law and gain changes.
+changes only while unconfigured. Limits and the watchdog timeout only tighten at run time:
+raising one needs an unconfigured node. Deletes are refused. ``lock_gains: true`` refuses law
+and gain changes.
 """
 from __future__ import annotations
 
+import math
 import re
 import sys
 import time
 
 from builtin_interfaces.msg import Time
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus, KeyValue
+from rclpy.clock import Clock, ClockType
 from rclpy.lifecycle import Node as LifecycleNode
 from rclpy.lifecycle import TransitionCallbackReturn
+from rclpy.parameter import Parameter
 from rclpy.publisher import Publisher
-from rclpy.qos import QoSProfile, qos_profile_sensor_data
+from rclpy.qos import HistoryPolicy, QoSProfile, ReliabilityPolicy
 from rclpy.service import Service
 from rclpy.subscription import Subscription
 from rclpy.timer import Timer
@@ -48,11 +68,17 @@ from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray
 from std_srvs.srv import Trigger
 
-from .. import config, controller
+from .. import config, controller, safety
 from .. import joint_state_codec as codec
+from ..watchdog import ClockStall, Watchdog, stall_timeout
 from . import params, spin
 
 RUNTIME_KEYS = re.compile(r"^(law|watchdog_timeout|gain_ramp_time|[^.]+\.(gains|limits)\.\w+)$")
+WAITING_REPORT = 1.0     # s of steady time active without a joint state before it is reported
+SUPERVISE_PERIOD = 0.25  # s of steady time between checks of the clock, the command topic and the logs
+BURST_GAP = 1.0          # s without rejections that ends a burst of rejected messages
+NEWEST_ONLY = QoSProfile(history=HistoryPolicy.KEEP_LAST, depth=1, reliability=ReliabilityPolicy.BEST_EFFORT)
+UNSUPPORTED_SEQUENCE = 2 ** 64 - 1  # rmw's RMW_MESSAGE_INFO_SEQUENCE_NUMBER_UNSUPPORTED
 
 
 def _ns(stamp) -> int:
@@ -70,6 +96,7 @@ class ControllerNode(LifecycleNode):
         self.setup = self.bank = None
         self.active = False
         self._entities = []
+        self._steady = Clock(clock_type=ClockType.STEADY_TIME)
         self.add_on_set_parameters_callback(self._on_set_parameters)
 
     # --- lifecycle -------------------------------------------------------------------------
@@ -82,33 +109,47 @@ class ControllerNode(LifecycleNode):
         self.bank = controller.bank(s)
         self.decoder = codec.StateDecoder(s.joints, s.spring_torque_source == "effort")
         self.ticks = codec.TickClock(1.0 / s.control_rate)
-        self.refs = codec.ReferenceSchedule(s.joint_names)
-        self._answered, self._last_command = 0, None
+        self.refs = codec.ReferenceSchedule(s.joint_names, [j.limits for j in s.joints])
+        self.stamps = codec.StampOrder(s.watchdog_timeout)
+        self.sim_time = self.get_parameter("use_sim_time").value
+        self._watch_clock = self.get_clock() if self.sim_time else self._steady
+        self.watchdog = Watchdog(s.watchdog_timeout)
+        self.stall = ClockStall(stall_timeout(s.watchdog_timeout))
+        self.stamp_rejected = self.dropped = 0
+        self._last_rejection_time = -math.inf
+        self._last_rejection = None
+        self._sequence = None
+        self._logged = [None] * len(self.bank)
+        self._last_command = None
         self._pub = self.create_publisher(JointState, "motor_effort", 1000)
         self._pub_array = (self.create_publisher(Float64MultiArray, "motor_effort_array", 10)
                            if s.array_output else None)
         self._pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
         self._watchdog_period = s.watchdog_timeout
-        self._watchdog = self.create_timer(s.watchdog_timeout, self._on_watchdog)
-        self._entities = [self._watchdog, self._pub, self._pub_array, self._pub_diag,
-                          self.create_subscription(JointState, "joint_states", self._on_state,
-                                                   qos_profile_sensor_data),
+        self._watchdog_timer = self.create_timer(s.watchdog_timeout, self._on_watchdog, clock=self._watch_clock)
+        self._entities = [self._watchdog_timer, self._pub, self._pub_array, self._pub_diag,
+                          self.create_subscription(JointState, "joint_states", self._on_state, NEWEST_ONLY),
                           self.create_subscription(JointState, "link_reference", self._on_reference,
                                                    QoSProfile(depth=1000)),
                           self.create_timer(0.5, self._on_diagnostics),
+                          self.create_timer(SUPERVISE_PERIOD, self._on_supervise, clock=self._steady),
                           self.create_service(Trigger, "~/stop", self._on_stop),
                           self.create_service(Trigger, "~/reset_fault", self._on_reset)]
         return TransitionCallbackReturn.SUCCESS
 
     def on_activate(self, state):
-        now = self._now()
+        others = self.count_publishers(self._pub.topic_name) - 1
+        if others > 0:
+            self.get_logger().error(f"activation refused: {others} other publisher(s) on {self._pub.topic_name}")
+            return TransitionCallbackReturn.FAILURE
         for c in self.bank:
             if c.fault is None:
                 c.reset()  # the law restarts from the measured state, bumpless from the last command
-            c.arm(now)
         self.ticks = codec.TickClock(self.ticks.period)
         self._hold = [None] * len(self.bank)
-        self._feed_watchdog(self.setup.watchdog_timeout)
+        self.watchdog.disarm()  # armed by the first joint state
+        self.stall.reset()
+        self._activated_at, self._waiting_reported = self._steady_now(), False
         self.active = True
         return TransitionCallbackReturn.SUCCESS
 
@@ -126,14 +167,20 @@ class ControllerNode(LifecycleNode):
         return TransitionCallbackReturn.SUCCESS
 
     def go_quiet(self):
-        """Command the safe state: torque ramps to zero at the slew limit (bounded by watchdog_timeout), then silence."""
+        """Command the safe state: torque ramps to zero at the slew limit, zero is published, then silence.
+
+        Stamps continue one period at a time from the last command's; the ramp takes at most
+        safety.MAX_RAMP_DOWN s (the limits guarantee it reaches zero by then).
+        """
         if not self.active:
             return
         self.active = False
         period = self.ticks.period
-        for k in range(1, int(self.setup.watchdog_timeout / period) + 2):
-            taus = [c.safety.ramp_down(period) for c in self.bank]
-            self._publish(taus, _stamp(self._answered + round(k * period * 1e9)))
+        t = self._newest_command_time()
+        for _ in range(math.ceil(safety.MAX_RAMP_DOWN / period) + 1):
+            t += period
+            taus = [c.ramp_down(t) for c in self.bank]
+            self._publish(taus, _stamp(round(t * 1e9)))
             if not any(taus):
                 break
             time.sleep(period)
@@ -146,26 +193,58 @@ class ControllerNode(LifecycleNode):
         self._entities, self.bank, self.setup = [], None, None
 
     # --- callbacks -------------------------------------------------------------------------
-    def _on_state(self, msg):
+    def _on_state(self, msg, info):
         if not self.active:
             return
+        self._count_dropped(info)
+        now = self._now()
         stamp = _ns(msg.header.stamp)
-        if stamp and stamp == self._answered and self._last_command is not None:
-            self._publish(self._last_command, msg.header.stamp)
+        t = stamp * 1e-9 if stamp else now
+        kind = self.stamps.classify(t, now)
+        if kind is codec.Stamp.REPEATED:
+            if self._last_command is not None:
+                self._publish(self._last_command, msg.header.stamp)
+            self.watchdog.repeated()
+            return
+        if kind is not codec.Stamp.NEW:
+            self.stamp_rejected += 1
+            self._rejected("joint state", self.stamps.rejection(kind, t, now))
             return
         samples = self.decoder.decode(msg.name, msg.position, msg.velocity, msg.effort)
-        if isinstance(samples, str):
-            self.get_logger().warning(f"joint state rejected: {samples}", throttle_duration_sec=1.0)
+        if isinstance(samples, codec.Rejection):
+            self._rejected("joint state", samples)
             return
-        now = self._now()
-        t = stamp * 1e-9 if stamp else now
+        self.stamps.accept(t)
         dt = self.ticks.interval(t)
         refs = self.refs.at(t)
-        taus = [c.step(s, self._reference(j, s, refs[j]), now, dt)
+        taus = [c.step(s, self._reference(j, s, refs[j]), t, dt)
                 for j, (c, s) in enumerate(zip(self.bank, samples))]
-        self._answered = stamp
-        self._publish(taus, msg.header.stamp)
+        self._publish(taus, _stamp(round(t * 1e9)) if not stamp else msg.header.stamp)
+        self.watchdog.fresh(self._watch_now())
         self._feed_watchdog(self.setup.watchdog_timeout)
+        self._log_faults()
+
+    def _count_dropped(self, info):
+        """Count the samples DDS dropped (keep last 1) since the previous one, from sequence numbers."""
+        sequence = info.get("reception_sequence_number")
+        if sequence is None or sequence == UNSUPPORTED_SEQUENCE:
+            sequence = info.get("publication_sequence_number")
+        if sequence is None or sequence == UNSUPPORTED_SEQUENCE:
+            return
+        if self._sequence is not None and sequence > self._sequence + 1:
+            self.dropped += sequence - self._sequence - 1
+        self._sequence = sequence
+
+    def _rejected(self, what: str, rejection: codec.Rejection):
+        """Count a rejected message; log the first of a burst with its reason."""
+        if what == "joint state":
+            self.watchdog.rejected(rejection)
+            self._last_rejection = rejection
+        now = self._steady_now()
+        if now - self._last_rejection_time > BURST_GAP:
+            self.get_logger().warning(f"{what} rejected: {rejection.reason} (further rejections are counted "
+                                      f"in /diagnostics until {BURST_GAP} s without one)")
+        self._last_rejection_time = now
 
     def _reference(self, j, sample, ref):
         if ref is not None:
@@ -175,80 +254,139 @@ class ControllerNode(LifecycleNode):
         return self._hold[j]
 
     def _on_reference(self, msg):
-        reason = self.refs.add(_ns(msg.header.stamp) * 1e-9, msg.name, msg.position, msg.velocity)
-        if reason:
-            self.get_logger().warning(f"link reference rejected: {reason}", throttle_duration_sec=1.0)
+        rejection = self.refs.add(_ns(msg.header.stamp) * 1e-9, msg.name, msg.position, msg.velocity)
+        if rejection is not None:
+            self._rejected("link reference", rejection)
 
     def _on_watchdog(self):
-        """Fires only after watchdog_timeout without a joint state; then every control period
-        (trip, ramp the torque down) until joint states come back."""
+        """Fires after watchdog_timeout without a new joint state (the timer restarts on each);
+        then every control period (trip, ramp the torque down) until joint states come back."""
+        if not self.active or not self.watchdog.armed:
+            return
+        fault = self.watchdog.expired(self._watch_now())
+        if fault is not None:
+            for c in self.bank:
+                c.trip(fault)
+            t = max(self._now(), self._newest_command_time() + self.ticks.period)
+            self._publish([c.ramp_down(t) for c in self.bank], _stamp(round(t * 1e9)))
+            self._log_faults()
+        self._feed_watchdog(self.ticks.period)
+
+    def _on_supervise(self):
+        """Steady-clock checks: a stopped sim clock, activation without joint states, a second
+        publisher on the command topic; logs new faults."""
         if not self.active:
             return
-        taus = [c.watchdog(self._now(), self.setup.watchdog_timeout, self.ticks.period) for c in self.bank]
-        if any(t is not None for t in taus):
-            self._publish([c.safety.last_torque if t is None else t for c, t in zip(self.bank, taus)],
-                          self.get_clock().now().to_msg())
-        self._feed_watchdog(self.ticks.period)
+        steady = self._steady_now()
+        fault = self.stall.expired(self._now(), steady) if self.sim_time and self.watchdog.armed else None
+        if not self.watchdog.armed and not self._waiting_reported and steady - self._activated_at > WAITING_REPORT:
+            self._waiting_reported = True
+            self.get_logger().warning(f"active for {steady - self._activated_at:.1f} s without a joint state on "
+                                      f"{self.resolve_topic_name('joint_states')}: nothing is commanded")
+        others = self.count_publishers(self._pub.topic_name) - 1
+        if others > 0:
+            fault = safety.Fault(safety.FaultCode.COMMAND_CONFLICT,
+                                 f"{others} other publisher(s) on {self._pub.topic_name}")
+        if fault is not None:
+            for c in self.bank:
+                c.trip(fault)
+        self._log_faults()
+
+    def _log_faults(self):
+        for j, c in enumerate(self.bank):
+            if c.fault is not None and c.fault is not self._logged[j]:
+                self.get_logger().error(f"{self.setup.joints[j].name}: safe mode ({self.setup.safe_mode}): {c.fault}")
+            self._logged[j] = c.fault
 
     def _feed_watchdog(self, period: float):
         """Restart the watchdog timer with ``period`` (s): idle between joint states, no polling."""
         if period != self._watchdog_period:
-            self._watchdog.timer_period_ns = round(period * 1e9)
+            self._watchdog_timer.timer_period_ns = round(period * 1e9)
             self._watchdog_period = period
-        self._watchdog.reset()
+        self._watchdog_timer.reset()
 
     def _on_diagnostics(self):
-        mode = "active" if self.active else "inactive"
+        waiting = self.active and not self.watchdog.armed
+        mode = "waiting for joint states" if waiting else "active" if self.active else "inactive"
         rate = self.ticks.rate()
         msg = DiagnosticArray()
         msg.header.stamp = self.get_clock().now().to_msg()
         for j, c in zip(self.setup.joints, self.bank):
-            values = {"law": c.law_name, "mode": "safe" if c.fault else mode, "fault": c.fault or "",
+            rejection = self._last_rejection
+            values = {"law": c.law_name, "mode": "safe" if c.fault else mode,
+                      "fault_code": c.fault.code.value if c.fault else "", "fault": c.fault.reason if c.fault else "",
                       "tick_rate_hz": f"{rate:.1f}", "late_ticks": str(self.ticks.late),
-                      "rejected_messages": str(self.decoder.rejected),
-                      "last_rejection": self.decoder.last_reason or ""}
+                      "rejected_messages": str(self.decoder.rejected + self.stamp_rejected),
+                      "dropped_messages": str(self.dropped),
+                      "last_rejection": rejection.reason if rejection else "",
+                      "reference_rejected": str(self.refs.rejected), "reference_clipped": str(self.refs.clipped),
+                      "last_reference_issue": self.refs.last_issue.reason if self.refs.last_issue else ""}
             msg.status.append(DiagnosticStatus(
-                level=DiagnosticStatus.ERROR if c.fault else DiagnosticStatus.OK,
+                level=DiagnosticStatus.ERROR if c.fault else DiagnosticStatus.WARN if waiting else DiagnosticStatus.OK,
                 name=f"{self.get_name()}: {j.name}", hardware_id=j.name,
-                message=c.fault or f"{mode}, law {c.law_name}",
+                message=str(c.fault) if c.fault else f"{mode}, law {c.law_name}",
                 values=[KeyValue(key=k, value=v) for k, v in values.items()]))
         self._pub_diag.publish(msg)
 
     def _on_stop(self, request, response):
         for c in self.bank:
             c.stop("stop requested (~/stop)")
+        self._log_faults()
         response.success, response.message = True, "safe mode"
         return response
 
     def _on_reset(self, request, response):
         reasons = ["not active"] if not self.active else [
             f"{j.name}: {r}" for j, r in zip(self.setup.joints, map(self._reset_one, self.bank)) if r]
+        if self.active and len(reasons) < len(self.bank):
+            self.refs.clear()  # a reset law holds the measured position, never an old reference
+            self._hold = [None] * len(self.bank)
         response.success = not reasons
         response.message = "; ".join(reasons) or "fault cleared"
+        if reasons:
+            self.get_logger().warning(f"reset refused: {response.message}")
+        else:
+            self.get_logger().info("fault cleared; the law restarts holding the measured position")
+        self._logged = [c.fault for c in self.bank]
         return response
 
     def _reset_one(self, c):
-        if c.last_reading_time is None or self._now() - c.last_reading_time > self.setup.watchdog_timeout:
+        if not self.watchdog.armed or self._watch_now() - self.watchdog.last_new > self.setup.watchdog_timeout:
             return "no fresh joint state"
         return c.reset()
 
     def _on_set_parameters(self, changes):
-        new = params.changed(self, self._keys, changes)
-        if not new:
-            return params.result(None)
+        reason = self._refusal(changes)
+        if reason is not None:
+            self.get_logger().warning(f"parameter change refused: {reason}")
+        return params.result(reason)
+
+    def _refusal(self, changes) -> str | None:
+        """Why ``changes`` cannot be applied, or None after applying them."""
+        deleted = [p.name for p in changes if p.type_ == Parameter.Type.NOT_SET]
+        if deleted:
+            return f"{deleted[0]}: parameters cannot be deleted (set a new value instead)"
         try:
             setup = config.controller_setup(params.values(self, self._keys, changes))
         except config.ConfigError as err:
-            return params.result(str(err))
+            return str(err)
         if self.bank is None:
-            return params.result(None)  # read again on configure
+            return None  # read again on configure
+        new = params.changed(self, self._keys, changes)
         fixed = sorted(k for k in new if not RUNTIME_KEYS.match(k))
         if fixed:
-            return params.result(f"{fixed[0]}: changes only while unconfigured (cleanup, set, configure)")
+            return f"{fixed[0]}: changes only while unconfigured (cleanup, set, configure)"
         if self.setup.lock_gains and any(k == "law" or ".gains." in k for k in new):
-            return params.result("lock_gains is true: law and gains are fixed at run time")
+            return "lock_gains is true: law and gains are fixed at run time"
+        relaxed = [f"{j.name}.limits.{name}" for old, j in zip(self.setup.joints, setup.joints)
+                   for name in safety.relaxations(old.limits, j.limits)]
+        if setup.watchdog_timeout > self.setup.watchdog_timeout:
+            relaxed.append("watchdog_timeout")
+        if relaxed:
+            return (f"{relaxed[0]}: limits only tighten at run time; raising one needs an unconfigured node "
+                    "(deactivate, cleanup, set, configure)")
         self._apply(setup)
-        return params.result(None)
+        return None
 
     def _apply(self, setup):
         now = self._now()
@@ -259,11 +397,27 @@ class ControllerNode(LifecycleNode):
                 c.set_gains(j.gains, now, setup.gain_ramp_time)
             if j.limits != old.limits:
                 c.set_limits(j.limits)
+        self.refs.limits = [j.limits for j in setup.joints]
+        self.watchdog.timeout = self.stamps.ahead_tolerance = setup.watchdog_timeout
+        self.stall.timeout = stall_timeout(setup.watchdog_timeout)
         self.setup = setup
 
     # --- helpers ---------------------------------------------------------------------------
     def _now(self) -> float:
+        """Node clock (s): sim time with use_sim_time, else system time."""
         return self.get_clock().now().nanoseconds * 1e-9
+
+    def _watch_now(self) -> float:
+        """Watchdog clock (s): sim time with use_sim_time, else the steady clock."""
+        return self._watch_clock.now().nanoseconds * 1e-9
+
+    def _steady_now(self) -> float:
+        return self._steady.now().nanoseconds * 1e-9
+
+    def _newest_command_time(self) -> float:
+        """Stamp time (s) of the newest command, or the node clock before the first."""
+        times = [c.safety.last_time for c in self.bank if c.safety.last_time is not None]
+        return max(times) if times else self._now()
 
     def _publish(self, taus, stamp):
         msg = JointState(name=[j.command for j in self.setup.joints], effort=[float(t) for t in taus])

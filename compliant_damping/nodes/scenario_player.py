@@ -66,16 +66,16 @@ class ScenarioPlayer:
     def _on_state(self, msg):
         tick = round(_ns(msg.header.stamp) / self.period_ns)
         samples = self.decoder.decode(msg.name, msg.position, msg.velocity, msg.effort)
-        if not isinstance(samples, str):
+        if not isinstance(samples, codec.Rejection):
             tau_s = codec.pick_values(msg.name, msg.effort, self.joints)
-            tau_s = [float("nan")] * len(self.joints) if isinstance(tau_s, str) else tau_s
+            tau_s = [float("nan")] * len(self.joints) if isinstance(tau_s, codec.Rejection) else tau_s
             self.states[tick] = [(*s[:4], v) for s, v in zip(samples, tau_s)]
         if self.streaming:
             self.send_ahead(tick)
 
     def _on_effort(self, msg):
         taus = codec.pick_values(msg.name, msg.effort, self.commands)
-        if not isinstance(taus, str):
+        if not isinstance(taus, codec.Rejection):
             self.efforts[round(_ns(msg.header.stamp) / self.period_ns)] = taus
 
     def arrays(self, ticks: int) -> dict:

@@ -39,6 +39,7 @@ from dataclasses import fields
 from builtin_interfaces.msg import Time
 from rclpy.clock import Clock, ClockType
 from rclpy.node import Node
+from rclpy.parameter import Parameter
 from rclpy.qos import QoSProfile, qos_profile_sensor_data
 from rosgraph_msgs.msg import Clock as ClockMsg
 from sensor_msgs.msg import JointState
@@ -90,8 +91,8 @@ class SimulatedJointNode(Node):
 
     def _on_command(self, msg):
         taus = codec.pick_values(msg.name, msg.effort, self._commands)
-        if isinstance(taus, str):
-            self.get_logger().warning(f"motor effort rejected: {taus}", throttle_duration_sec=1.0)
+        if isinstance(taus, codec.Rejection):
+            self.get_logger().warning(f"motor effort rejected: {taus.reason}", throttle_duration_sec=1.0)
             return
         if self.setup.lock_step:
             if _ns(msg.header.stamp) == self.plant.ticks * self._period_ns:
@@ -127,8 +128,8 @@ class SimulatedJointNode(Node):
 
     def _external(self, msg, apply):
         values = codec.pick_values(msg.name, msg.effort, self.setup.joint_names)
-        if isinstance(values, str):
-            self.get_logger().warning(f"external torque rejected: {values}")
+        if isinstance(values, codec.Rejection):
+            self.get_logger().warning(f"external torque rejected: {values.reason}")
             return
         stamp, now = _ns(msg.header.stamp) * 1e-9, self._state_time()
         start = max(stamp, now) if self.setup.lock_step else self.plant.t + max(stamp - now, 0.0)
@@ -143,17 +144,26 @@ class SimulatedJointNode(Node):
         self._external(msg, self.plant.add_impulse)
 
     def _on_set_parameters(self, changes):
-        new = params.changed(self, self._keys, changes)
-        fixed = sorted(set(new) - self._plant_keys)
+        reason = self._refusal(changes)
+        if reason is not None:
+            self.get_logger().warning(f"parameter change refused: {reason}")
+        return params.result(reason)
+
+    def _refusal(self, changes) -> str | None:
+        """Why ``changes`` cannot be applied (deletes, fixed keys, invalid values), or None after applying them."""
+        deleted = [p.name for p in changes if p.type_ == Parameter.Type.NOT_SET]
+        if deleted:
+            return f"{deleted[0]}: parameters cannot be deleted (set a new value instead)"
+        fixed = sorted(set(params.changed(self, self._keys, changes)) - self._plant_keys)
         if fixed:
-            return params.result(f"{fixed[0]}: fixed after start; only plant parameters change at run time")
+            return f"{fixed[0]}: fixed after start; only plant parameters change at run time"
         try:
             setup = config.sim_setup(params.values(self, self._keys, changes))
         except config.ConfigError as err:
-            return params.result(str(err))
+            return str(err)
         self.plant.set_joints(setup.joints)
         self.setup = setup
-        return params.result(None)
+        return None
 
     def _publish(self):
         if self.setup.lock_step:
