@@ -448,8 +448,10 @@ def read(path) -> dict:
     try:
         return yaml.safe_load(text) or {}
     except yaml.MarkedYAMLError as err:
-        mark = err.problem_mark or err.context_mark
-        reason = " ".join(filter(None, (err.context, err.problem)))
+        mark, start = err.problem_mark or err.context_mark, err.context_mark
+        reason = err.problem or err.context
+        if err.context and err.problem and start is not None:
+            reason += f" ({err.context} started at {start.line + 1}:{start.column + 1})"
         raise YamlSyntaxError(str(path), mark.line + 1, mark.column + 1, reason) from None
     except yaml.YAMLError as err:
         raise ConfigError(str(path), f"not valid YAML: {err}") from None
