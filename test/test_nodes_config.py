@@ -6,8 +6,12 @@ must look at all of them. The did-you-mean is difflib's closest known key (Pytho
 library, ``get_close_matches``).
 """
 import difflib
+import os
+import subprocess
+import sys
 
 import pytest
+import yaml
 from rclpy.parameter import Parameter
 
 from compliant_damping import config
@@ -67,3 +71,19 @@ def test_a_given_unknown_key_cannot_be_set_at_run_time(ros):
     assert params.unknown_keys(sim, config.SIM_NODE, [Parameter("knee.stop_upper", value=0.5)]) is None
     reason = params.unknown_keys(sim, config.SIM_NODE, [Parameter("knee.stop_uper", value=0.5)])
     assert reason.startswith("knee.stop_uper: unknown key in simulated_joint; did you mean knee.stop_upper?")
+
+
+@pytest.mark.parametrize("module", ["controller_node", "simulated_joint_node"])
+def test_node_executable_reports_a_yaml_error_with_line_and_column(tmp_path, module):
+    """rcl refuses the file at init; the node prints PyYAML's position (1-based) and exits 2."""
+    path = tmp_path / "broken.yaml"
+    path.write_text(f"{config.SIM_NODE}:\n  ros__parameters:\n    joint_names: [knee\n    seed: 0\n")
+    with pytest.raises(yaml.MarkedYAMLError) as raw:  # the reference: PyYAML's problem mark, 0-based
+        yaml.safe_load(path.read_text())
+    mark = raw.value.problem_mark
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([os.getcwd(), os.environ.get("PYTHONPATH", "")])}
+    run = subprocess.run([sys.executable, "-m", f"compliant_damping.nodes.{module}", "--ros-args",
+                          "--params-file", str(path)], capture_output=True, text=True, timeout=60, env=env)
+    assert run.returncode == 2
+    assert f"parameter error: {path}:{mark.line + 1}:{mark.column + 1}: " in run.stderr
+    assert "Traceback" not in run.stderr
