@@ -1,4 +1,4 @@
-"""``cdamp``: offline work on a series-elastic joint: simulate, analyze, tune, report, demo, keys."""
+"""``cdamp``: offline work on a series-elastic joint: simulate, analyze, tune, report, demo, keys, check-config."""
 from __future__ import annotations
 
 import argparse
@@ -7,7 +7,7 @@ import dataclasses
 import json
 import sys
 
-from . import analysis, config, controller, scenarios, simulate, tuning
+from . import analysis, config, config_check, controller, scenarios, simulate, tuning
 from .laws import LAW_NAMES, make_law
 
 
@@ -75,6 +75,21 @@ def cmd_keys(args) -> int:
             default = "required" if spec.default is config.MISSING else repr(spec.default)
             print(f"  {spec.key:<40} {spec.kind.__name__:<6} {default:<14} {spec.description}")
     return 0
+
+
+def cmd_check_config(args) -> int:
+    """Every problem of a parameter file (and its --layer files), one ``KEY: reason`` line each; exit 1 if any."""
+    paths = [args.file] + (args.layer or [])
+    problems = config_check.check_files(paths)
+    if args.json:
+        print(json.dumps({"files": paths, "ok": not problems,
+                          "problems": [dataclasses.asdict(p) for p in problems]}, indent=2))
+    else:
+        for p in problems:
+            print(p)
+        if not problems:
+            print(f"{' + '.join(paths)}: OK")
+    return 1 if problems else 0
 
 
 def _joint(args, ctrl, sim):
@@ -209,6 +224,11 @@ def parser() -> argparse.ArgumentParser:
     k = sub.add_parser("keys", help="list every parameter key with type, default, unit and meaning")
     k.add_argument("--config", help="parameter file whose joint names to use (default: bundled)")
     k.set_defaults(run=cmd_keys)
+    c = sub.add_parser("check-config", help="print every problem of a parameter file (key: reason); exit 1 if any")
+    c.add_argument("file", help="parameter file")
+    c.add_argument("--layer", action="append", metavar="FILE", help="file layered over FILE, key by key (repeatable)")
+    c.add_argument("--json", action="store_true", help="print the problems as JSON")
+    c.set_defaults(run=cmd_check_config)
     a = sub.add_parser("analyze", help="linearise law + joint at the set point: poles, modes, static stiffness")
     _file_args(a)
     a.add_argument("--joint", help="joint to analyse (default: the first)")

@@ -17,11 +17,23 @@ Layout (node names are the sections; keys are ROS parameter names, dotted when n
         knee: {link_inertia: 0.25, ...}         # model.JointParams + sensors.SensorParams
 
 Values are typed as ROS types them: a float key needs a float (``300.0``, not
-``300``). Every error names the dotted key and the reason (:class:`ConfigError`).
+``300``). Every error names the dotted key and the reason (:class:`ConfigError`); an unknown
+key names the closest known key of its node section (of its joint, for a per-joint key).
 Runtime parameter changes in the nodes go through the same functions.
+
+Rules beyond one key (each refuses the setup):
+
+* ``watchdog_timeout`` at least two control periods (``2 / control_rate``): the watchdog is
+  restarted by every joint state, so a shorter timeout trips between two regular states.
+* ``<joint>.limits.torque / torque_rate`` at most :data:`MAX_RAMP_TIME` (10 s): the safe state
+  ramps the command to zero at the slew limit, and the node promises to be there within 10 s.
+
+:func:`controller_check` and :func:`sim_check` gather every problem instead of stopping at the
+first (``cdamp check-config``, with the limit consistency rules of config_check.py).
 """
 from __future__ import annotations
 
+import difflib
 import math
 from dataclasses import MISSING, dataclass, fields
 from pathlib import Path
@@ -37,6 +49,9 @@ CONTROLLER_NODE = "damping_controller"
 SIM_NODE = "simulated_joint"
 
 
+MAX_RAMP_TIME = 10.0  # s: longest ramp of the command to zero at the slew limit (torque / torque_rate)
+
+
 class ConfigError(ValueError):
     """A parameter is missing, unknown, of the wrong type or physically impossible."""
 
@@ -44,6 +59,37 @@ class ConfigError(ValueError):
         super().__init__(f"{key}: {reason}")
         self.key = key
         self.reason = reason
+
+
+class YamlSyntaxError(ConfigError):
+    """A parameter file that is not YAML; ``line`` and ``column`` count from 1 (key ``FILE:LINE:COL``)."""
+
+    def __init__(self, path: str, line: int, column: int, reason: str):
+        super().__init__(f"{path}:{line}:{column}", reason)
+        self.path, self.line, self.column = path, line, column
+
+
+class Problems:
+    """ConfigErrors gathered instead of raised at the first one."""
+
+    def __init__(self):
+        self.found: list = []
+
+    def attempt(self, fn, *args):
+        """``fn(*args)``, or None after recording the ConfigError it raised."""
+        try:
+            return fn(*args)
+        except ConfigError as err:
+            self.found.append(err)
+            return None
+
+
+@dataclass(frozen=True)
+class Checked:
+    """Outcome of checking one node section: the setup (None if any problem) and every problem."""
+
+    setup: object
+    problems: tuple
 
 
 _CHECKS = {
@@ -83,25 +129,35 @@ def dataclass_keys(cls, prefix: str):
     return [(f"{prefix}{f.name}", f) for f in fields(cls)]
 
 
-def build(cls, params: dict, prefix: str, used: set):
-    """Instance of parameter dataclass ``cls`` from the flat ``params`` under ``prefix``."""
-    values = {}
-    for key, f in dataclass_keys(cls, prefix):
-        if key not in params:
-            if f.default is MISSING or f.metadata.get("required"):
-                raise ConfigError(key, f"required ({f.metadata['doc']}, {f.metadata['unit']})")
-            continue
-        used.add(key)
-        value = _typed(key, params[key], float)
-        ok, reason = _CHECKS[f.metadata["check"]]
-        if not ok(value):
-            raise ConfigError(key, f"{reason}, got {value!r} ({f.metadata['doc']})")
-        values[f.name] = value
+def _field(params: dict, key: str, f):
+    """Checked float value of dataclass field ``f`` under ``key``, or MISSING when absent and optional."""
+    if key not in params:
+        if f.default is MISSING or f.metadata.get("required"):
+            raise ConfigError(key, f"required ({f.metadata['doc']}, {f.metadata['unit']})")
+        return MISSING
+    value = _typed(key, params[key], float)
+    ok, reason = _CHECKS[f.metadata["check"]]
+    if not ok(value):
+        raise ConfigError(key, f"{reason}, got {value!r} ({f.metadata['doc']})")
+    return value
+
+
+def build(cls, params: dict, prefix: str, problems: Problems):
+    """Instance of parameter dataclass ``cls`` from the flat ``params`` under ``prefix``.
+
+    None after recording every bad key in ``problems``; the cross-field checks of ``cls``
+    run only when each field is valid.
+    """
+    before = len(problems.found)
+    values = {f.name: problems.attempt(_field, params, key, f) for key, f in dataclass_keys(cls, prefix)}
+    if len(problems.found) > before:
+        return None
     try:
-        return cls(**values)
+        return cls(**{name: v for name, v in values.items() if v is not MISSING})
     except ValueError as err:  # cross-field checks say "field: reason"
         field_name, _, reason = str(err).partition(": ")
-        raise ConfigError(f"{prefix}{field_name}", reason) from None
+        problems.found.append(ConfigError(f"{prefix}{field_name}", reason))
+        return None
 
 
 @dataclass(frozen=True)
@@ -152,9 +208,8 @@ SIM_JOINT_SETTINGS = (
 SIM_JOINT_GROUPS = (("", JointParams), ("", SensorParams))
 
 
-def _setting(params: dict, setting: Setting, used: set, joint: str | None = None):
+def _setting(params: dict, setting: Setting, joint: str | None = None):
     key = setting.key if joint is None else f"{joint}.{setting.key}"
-    used.add(key)
     default = setting.default(joint) if callable(setting.default) else setting.default
     value = _typed(key, params[key], setting.kind) if key in params else default
     if value is MISSING:
@@ -168,14 +223,29 @@ def _setting(params: dict, setting: Setting, used: set, joint: str | None = None
     return value
 
 
-def _settings(params: dict, table, used: set, joint: str | None = None) -> dict:
-    return {s.key: _setting(params, s, used, joint) for s in table}
+def _settings(params: dict, table, problems: Problems, joint: str | None = None) -> dict:
+    """{key: value} of the settings in ``table``; a bad one is recorded and left out."""
+    values = {s.key: problems.attempt(_setting, params, s, joint) for s in table}
+    return {k: v for k, v in values.items() if v is not None}
 
 
-def _reject_unknown(params: dict, used: set, section: str):
-    unknown = sorted(set(params) - used)
-    if unknown:
-        raise ConfigError(unknown[0], f"unknown key in {section} (`cdamp keys` lists the known keys)")
+def unknown_key(key: str, node: str, joint_names) -> ConfigError:
+    """Refusal of ``key``, unknown to ``node`` with these joints, naming the closest known key.
+
+    The candidates are the known keys of that joint when ``key`` starts with a joint name,
+    else every known key of the node (difflib's similarity ratio, cut-off 0.6).
+    """
+    known = [s.key for s in parameter_specs(node, joint_names)]
+    head = key.split(".", 1)[0]
+    pool = [k for k in known if k.startswith(f"{head}.")] if head in joint_names else known
+    close = difflib.get_close_matches(key, pool, n=1)
+    hint = f"; did you mean {close[0]}?" if close else ""
+    return ConfigError(key, f"unknown key in {node}{hint} (`cdamp keys` lists the known keys)")
+
+
+def _unknown(params: dict, node: str, joint_names, problems: Problems) -> None:
+    known = {s.key for s in parameter_specs(node, joint_names)}
+    problems.found += [unknown_key(k, node, joint_names) for k in sorted(set(params) - known)]
 
 
 @dataclass(frozen=True)
@@ -234,25 +304,51 @@ class ControllerSetup:
         return [j.name for j in self.joints]
 
 
-def controller_setup(params: dict) -> ControllerSetup:
-    """Validated controller setup from flat (dotted) parameters."""
-    used: set = set()
-    top = _settings(params, CONTROLLER_SETTINGS, used)
-    joints = []
-    for n in top.pop("joint_names"):
-        gains = build(Gains, params, f"{n}.gains.", used)
+def _controller_joint(params: dict, name: str, law: str | None, problems: Problems) -> ControllerJoint | None:
+    before = len(problems.found)
+    gains = build(Gains, params, f"{name}.gains.", problems)
+    if gains is not None and law is not None:
         try:
-            check_gains(top["law"], gains)
+            check_gains(law, gains)
         except ValueError as err:  # "field: reason"
             field_name, _, reason = str(err).partition(": ")
-            raise ConfigError(f"{n}.gains.{field_name}", reason) from None
-        joints.append(ControllerJoint(
-            name=n, **_settings(params, CONTROLLER_JOINT_SETTINGS, used, n),
-            model=build(NominalModel, params, f"{n}.model.", used),
-            gains=gains,
-            limits=build(Limits, params, f"{n}.limits.", used)))
-    _reject_unknown(params, used, CONTROLLER_NODE)
-    return ControllerSetup(joints=tuple(joints), **top)
+            problems.found.append(ConfigError(f"{name}.gains.{field_name}", reason))
+    names = _settings(params, CONTROLLER_JOINT_SETTINGS, problems, name)
+    model = build(NominalModel, params, f"{name}.model.", problems)
+    limits = build(Limits, params, f"{name}.limits.", problems)
+    if limits is not None and limits.torque / limits.torque_rate > MAX_RAMP_TIME:
+        problems.found.append(ConfigError(
+            f"{name}.limits.torque_rate",
+            f"{limits.torque_rate} N m/s ramps {limits.torque} N m to zero in {limits.torque / limits.torque_rate:.3g} s, "
+            f"more than the {MAX_RAMP_TIME:g} s the safe state may take (torque / torque_rate <= {MAX_RAMP_TIME:g} s)"))
+    if len(problems.found) > before:
+        return None
+    return ControllerJoint(name=name, **names, model=model, gains=gains, limits=limits)
+
+
+def controller_check(params: dict) -> Checked:
+    """Every problem of the controller's flat (dotted) parameters, and the setup if there is none."""
+    problems = Problems()
+    top = _settings(params, CONTROLLER_SETTINGS, problems)
+    if "watchdog_timeout" in top and "control_rate" in top and top["watchdog_timeout"] < 2.0 / top["control_rate"]:
+        problems.found.append(ConfigError(
+            "watchdog_timeout", f"{top['watchdog_timeout']} s is below two control periods "
+            f"(2 / control_rate = {2.0 / top['control_rate']:.6g} s): it would trip between regular joint states"))
+    names = top.pop("joint_names", None)
+    if names is None:  # without the joints, per-joint keys cannot be told from unknown ones
+        return Checked(None, tuple(problems.found))
+    joints = [_controller_joint(params, n, top.get("law"), problems) for n in names]
+    _unknown(params, CONTROLLER_NODE, names, problems)
+    setup = None if problems.found else ControllerSetup(joints=tuple(joints), **top)
+    return Checked(setup, tuple(problems.found))
+
+
+def controller_setup(params: dict) -> ControllerSetup:
+    """Validated controller setup from flat (dotted) parameters; raises the first ConfigError."""
+    checked = controller_check(params)
+    if checked.problems:
+        raise checked.problems[0]
+    return checked.setup
 
 
 @dataclass(frozen=True)
@@ -277,21 +373,37 @@ class SimSetup:
         return [j.name for j in self.joints]
 
 
+def _sim_joint(params: dict, name: str, problems: Problems) -> SimJoint | None:
+    before = len(problems.found)
+    plant = build(JointParams, params, f"{name}.", problems)
+    q0 = _settings(params, SIM_JOINT_SETTINGS, problems, name).get("initial_position")
+    if plant is not None and q0 is not None and not plant.stop_lower <= q0 <= plant.stop_upper:
+        problems.found.append(ConfigError(f"{name}.initial_position", f"{q0} rad is outside the end stops"))
+    sensor = build(SensorParams, params, f"{name}.", problems)
+    return None if len(problems.found) > before else SimJoint(name, plant, sensor, q0)
+
+
+def sim_check(params: dict) -> Checked:
+    """Every problem of the simulated joint's flat (dotted) parameters, and the setup if there is none."""
+    problems = Problems()
+    top = _settings(params, SIM_SETTINGS, problems)
+    if top.get("substeps", 1) < 1:
+        problems.found.append(ConfigError("substeps", f"must be at least 1, got {top['substeps']}"))
+    names = top.pop("joint_names", None)
+    if names is None:
+        return Checked(None, tuple(problems.found))
+    joints = [_sim_joint(params, n, problems) for n in names]
+    _unknown(params, SIM_NODE, names, problems)
+    setup = None if problems.found else SimSetup(joints=tuple(joints), **top)
+    return Checked(setup, tuple(problems.found))
+
+
 def sim_setup(params: dict) -> SimSetup:
-    """Validated simulated-joint setup from flat (dotted) parameters."""
-    used: set = set()
-    top = _settings(params, SIM_SETTINGS, used)
-    if top["substeps"] < 1:
-        raise ConfigError("substeps", f"must be at least 1, got {top['substeps']}")
-    joints = []
-    for n in top.pop("joint_names"):
-        plant = build(JointParams, params, f"{n}.", used)
-        q0 = _settings(params, SIM_JOINT_SETTINGS, used, n)["initial_position"]
-        if not plant.stop_lower <= q0 <= plant.stop_upper:
-            raise ConfigError(f"{n}.initial_position", f"{q0} rad is outside the end stops")
-        joints.append(SimJoint(n, plant, build(SensorParams, params, f"{n}.", used), q0))
-    _reject_unknown(params, used, SIM_NODE)
-    return SimSetup(joints=tuple(joints), **top)
+    """Validated simulated-joint setup from flat (dotted) parameters; raises the first ConfigError."""
+    checked = sim_check(params)
+    if checked.problems:
+        raise checked.problems[0]
+    return checked.setup
 
 
 def flatten(tree: dict, prefix: str = "") -> dict:
@@ -324,9 +436,23 @@ def node_parameters(document: dict, node: str, required: bool = True) -> dict:
 
 
 def read(path) -> dict:
-    """Parsed parameter file; a YAML syntax error becomes a ConfigError naming the line."""
+    """Parsed parameter file.
+
+    A YAML syntax error raises :class:`YamlSyntaxError` at PyYAML's problem mark (0-based
+    there, 1-based here, as editors count); an unreadable file a ConfigError naming it.
+    """
     try:
-        return yaml.safe_load(Path(path).read_text()) or {}
+        text = Path(path).read_text()
+    except OSError as err:
+        raise ConfigError(str(path), f"cannot read the file: {err.strerror}") from None
+    try:
+        return yaml.safe_load(text) or {}
+    except yaml.MarkedYAMLError as err:
+        mark, start = err.problem_mark or err.context_mark, err.context_mark
+        reason = err.problem or err.context
+        if err.context and err.problem and start is not None:
+            reason += f" ({err.context} started at {start.line + 1}:{start.column + 1})"
+        raise YamlSyntaxError(str(path), mark.line + 1, mark.column + 1, reason) from None
     except yaml.YAMLError as err:
         raise ConfigError(str(path), f"not valid YAML: {err}") from None
 

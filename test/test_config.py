@@ -42,6 +42,38 @@ def test_unchanged_copy_loads(tmp_path):
 def test_unknown_key(tmp_path):
     err = refused(tmp_path, lambda d: sim(d)["knee"].update(spring_stifness=300.0))
     assert err.key == "knee.spring_stifness" and "unknown" in err.reason
+    assert "did you mean knee.spring_stiffness?" in err.reason
+
+
+def test_misspelt_optional_limit_is_refused_with_the_key_meant(tmp_path):
+    """The defect behind issue 7: an optional limit misspelt must not leave the limit off."""
+    err = refused(tmp_path, lambda d: ctrl(d)["knee"]["limits"].update(position_uper=0.5))
+    assert err.key == "knee.limits.position_uper"
+    assert "did you mean knee.limits.position_upper?" in err.reason
+
+
+def test_did_you_mean_stays_within_the_joint():
+    """A per-joint key is matched against that joint's keys only (difflib.get_close_matches)."""
+    err = config.unknown_key("ankle.limits.torqe", CONTROLLER_NODE, ["hip", "ankle"])
+    assert err.reason.startswith("unknown key in damping_controller; did you mean ankle.limits.torque?")
+    far = config.unknown_key("colour", CONTROLLER_NODE, ["hip"])
+    assert "did you mean" not in far.reason  # nothing close: no guess
+
+
+def test_watchdog_below_two_control_periods(tmp_path):
+    """Two periods at 1 kHz are 2 ms; 1.5 ms would trip between two regular joint states."""
+    err = refused(tmp_path, lambda d: ctrl(d).update(watchdog_timeout=0.0015))
+    assert err.key == "watchdog_timeout" and "two control periods" in err.reason
+    controller, _ = load_changed(tmp_path, lambda d: ctrl(d).update(watchdog_timeout=0.002))
+    assert controller.watchdog_timeout == 0.002  # exactly two periods is possible
+
+
+def test_ramp_to_zero_longer_than_ten_seconds(tmp_path):
+    """40 N m at 3.9 N m/s takes 40 / 3.9 = 10.3 s to ramp to zero: refused; at 4 N m/s 10 s: accepted."""
+    err = refused(tmp_path, lambda d: ctrl(d)["knee"]["limits"].update(torque_rate=3.9))
+    assert err.key == "knee.limits.torque_rate" and "10.3 s" in err.reason
+    controller, _ = load_changed(tmp_path, lambda d: ctrl(d)["knee"]["limits"].update(torque_rate=4.0))
+    assert controller.joints[0].limits.torque_rate == 4.0
 
 
 def test_missing_required_key(tmp_path):
@@ -81,11 +113,17 @@ def test_initial_position_outside_stops(tmp_path):
 
 
 def test_yaml_syntax_error(tmp_path):
+    """Line and column of PyYAML's problem mark (0-based there), counted from 1 as editors do."""
     path = tmp_path / "broken.yaml"
     path.write_text(f"{CONTROLLER_NODE}:\n  ros__parameters:\n    joint_names: [knee\n    law: zero\n")
-    with pytest.raises(ConfigError) as info:
+    with pytest.raises(yaml.MarkedYAMLError) as raw:
+        yaml.safe_load(path.read_text())
+    with pytest.raises(config.YamlSyntaxError) as info:
         config.load(path)
-    assert info.value.key == str(path) and "line" in info.value.reason  # names the file and the line
+    err = info.value
+    assert (err.line, err.column) == (raw.value.problem_mark.line + 1, raw.value.problem_mark.column + 1)
+    assert (err.line, err.column) == (4, 8)  # the ':' after "law", where the open list cannot go on
+    assert str(err).startswith(f"{path}:4:8: ") and "flow sequence" in err.reason
 
 
 def test_missing_node_section(tmp_path):

@@ -91,7 +91,7 @@ def _stamp(ns: int) -> Time:
 
 class ControllerNode(LifecycleNode):
     def __init__(self, **kwargs):
-        super().__init__(config.CONTROLLER_NODE, **kwargs)
+        super().__init__(config.CONTROLLER_NODE, **params.NODE_OPTIONS, **kwargs)
         self._keys = params.declare(self, config.CONTROLLER_NODE)
         self.setup = self.bank = None
         self.active = False

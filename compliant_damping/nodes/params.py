@@ -1,6 +1,12 @@
 """ROS parameters of both nodes, declared from config.parameter_specs (one source of keys,
 defaults, units and docs). Types are checked by config, with the same messages as for files,
 so the descriptors allow any type; only ``joint_names`` is typed and read-only.
+
+Unknown keys: rcl keeps every value a parameter file or ``-p`` gives a node, declared or not,
+and rclpy would silently ignore the undeclared ones (a misspelt optional limit would be off).
+The nodes are therefore built with :data:`NODE_OPTIONS` (rclpy declares every given value at
+construction), :func:`declare` re-declares the known keys with their descriptions and leaves the
+others in the key list, so config refuses them by name with a did-you-mean.
 """
 from __future__ import annotations
 
@@ -10,21 +16,48 @@ from rclpy.parameter import Parameter
 
 from .. import config
 
+NODE_OPTIONS = {"automatically_declare_parameters_from_overrides": True}  # rclpy.node.Node keywords
+ROS_OWN = frozenset({"use_sim_time", "start_type_description_service"})  # declared by rclpy's Node itself
+
 
 def declare(node, node_name: str) -> list:
-    """Declare every key of ``node_name`` (joint_names first); returns the dotted keys."""
+    """Declare every key of ``node_name`` (joint_names first); returns the dotted keys.
+
+    ``node`` was made with NODE_OPTIONS: the values given to it that are not keys of
+    ``node_name`` (nor rclpy's own, ROS_OWN) stay declared as given and end the list, so
+    config.controller_setup / config.sim_setup refuse them naming the key.
+    """
+    given = set(node.get_parameters_by_prefix("")) - ROS_OWN
     doc = next(s.description for s in config.parameter_specs(node_name, []) if s.key == "joint_names")
-    names = node.declare_parameter("joint_names", Parameter.Type.STRING_ARRAY,
-                                   ParameterDescriptor(description=doc, read_only=True)).value or []
+    names = _redeclare(node, "joint_names", Parameter.Type.STRING_ARRAY,
+                       ParameterDescriptor(description=doc, read_only=True)).value or []
     keys = ["joint_names"]
     for spec in config.parameter_specs(node_name, names):
         if spec.key == "joint_names":
             continue
         default = None if spec.default is config.MISSING else spec.default
-        node.declare_parameter(spec.key, default,
-                               ParameterDescriptor(description=spec.description, dynamic_typing=True))
+        _redeclare(node, spec.key, default, ParameterDescriptor(description=spec.description, dynamic_typing=True))
         keys.append(spec.key)
-    return keys
+    return keys + sorted(given - set(keys))
+
+
+def _redeclare(node, key: str, default, descriptor: ParameterDescriptor):
+    """Declare ``key`` with ``descriptor``; a value given to the node (declared from it by rclpy) is kept."""
+    if node.has_parameter(key):
+        node.undeclare_parameter(key)  # the given value stays in rclpy's overrides and wins below
+    return node.declare_parameter(key, default, descriptor)
+
+
+def unknown_keys(node, node_name: str, changes) -> str | None:
+    """Reason to refuse a run-time change of a key ``node_name`` does not know (with a did-you-mean), or None.
+
+    ``changes``: the rclpy Parameters of a set-parameters callback. A given unknown value is
+    declared (see the module notes), so ``ros2 param set`` reaches the callbacks with it.
+    """
+    names = _get(node, "joint_names").value or []
+    known = {s.key for s in config.parameter_specs(node_name, names)}
+    unknown = sorted(p.name for p in changes if p.name not in known | ROS_OWN)
+    return str(config.unknown_key(unknown[0], node_name, names)) if unknown else None
 
 
 def values(node, keys, changes=()) -> dict:

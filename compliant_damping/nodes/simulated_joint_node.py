@@ -60,7 +60,7 @@ def _ns(stamp) -> int:
 
 class SimulatedJointNode(Node):
     def __init__(self, **kwargs):
-        super().__init__(config.SIM_NODE, **kwargs)
+        super().__init__(config.SIM_NODE, **params.NODE_OPTIONS, **kwargs)
         self._keys = params.declare(self, config.SIM_NODE)
         self.setup = config.sim_setup(params.values(self, self._keys))
         self.plant = Plant(self.setup)

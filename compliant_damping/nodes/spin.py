@@ -6,9 +6,32 @@ import sys
 
 import rclpy
 from rclpy.executors import ExternalShutdownException, SingleThreadedExecutor
+from rclpy.impl.implementation_singleton import rclpy_implementation as _rclpy
 from rclpy.signals import SignalHandlerOptions
 
 from .. import config
+
+
+def params_files(args) -> list:
+    """Paths given as ``--params-file PATH`` in a ROS command line (all of them, in order)."""
+    return [path for flag, path in zip(args, args[1:]) if flag == "--params-file"]
+
+
+def _refused_by_rcl(args, err) -> int:
+    """Report why rcl refused the command line; exit code 2.
+
+    rcl parses each --params-file itself and says only "near line N"; PyYAML gives the line and
+    column of a syntax error (``FILE:LINE:COL: reason``). A file that is YAML but breaks a rule
+    of ROS parameter files (e.g. a list mixing types) gets rcl's own message.
+    """
+    for path in params_files(args):
+        try:
+            config.read(path)
+        except config.ConfigError as bad:
+            print(f"parameter error: {bad}", file=sys.stderr)
+            return 2
+    print(f"parameter error: {err}", file=sys.stderr)
+    return 2
 
 
 def run(node_class, args=None, on_exit=None) -> int:
@@ -17,9 +40,13 @@ def run(node_class, args=None, on_exit=None) -> int:
     The signals only set a flag that the spin loop reads between callbacks (the executor wakes
     at least every 0.1 s), so no callback is cut short and the ROS context is still valid for
     ``on_exit(node)``, e.g. the controller's ramp to zero torque. rclpy's own handlers would
-    shut the context down under running callbacks. A bad parameter file exits 2 naming the key.
+    shut the context down under running callbacks. A bad parameter file exits 2 naming the key
+    (a YAML syntax error: the file, line and column), without a traceback.
     """
-    rclpy.init(args=args, signal_handler_options=SignalHandlerOptions.NO)
+    try:
+        rclpy.init(args=args, signal_handler_options=SignalHandlerOptions.NO)
+    except _rclpy.RCLError as err:  # rcl refused the command line, e.g. a --params-file
+        return _refused_by_rcl(sys.argv if args is None else args, err)
     stop = []
     for sig in (signal.SIGINT, signal.SIGTERM):
         signal.signal(sig, lambda signum, _frame: stop.append(signum))
