@@ -25,8 +25,9 @@ Rules beyond one key (each refuses the setup):
 
 * ``watchdog_timeout`` at least two control periods (``2 / control_rate``): the watchdog is
   restarted by every joint state, so a shorter timeout trips between two regular states.
-* ``<joint>.limits.torque / torque_rate`` at most :data:`MAX_RAMP_TIME` (10 s): the safe state
-  ramps the command to zero at the slew limit, and the node promises to be there within 10 s.
+* ``<joint>.limits.torque / torque_rate`` at most ``safety.MAX_RAMP_DOWN`` (10 s, checked by
+  ``safety.Limits``): the safe state ramps the command to zero at the slew limit, and the node
+  promises to be there within 10 s.
 
 :func:`controller_check` and :func:`sim_check` gather every problem instead of stopping at the
 first (``cdamp check-config``, with the limit consistency rules of config_check.py).
@@ -49,7 +50,6 @@ CONTROLLER_NODE = "damping_controller"
 SIM_NODE = "simulated_joint"
 
 
-MAX_RAMP_TIME = 10.0  # s: longest ramp of the command to zero at the slew limit (torque / torque_rate)
 
 
 class ConfigError(ValueError):
@@ -316,11 +316,6 @@ def _controller_joint(params: dict, name: str, law: str | None, problems: Proble
     names = _settings(params, CONTROLLER_JOINT_SETTINGS, problems, name)
     model = build(NominalModel, params, f"{name}.model.", problems)
     limits = build(Limits, params, f"{name}.limits.", problems)
-    if limits is not None and limits.torque / limits.torque_rate > MAX_RAMP_TIME:
-        problems.found.append(ConfigError(
-            f"{name}.limits.torque_rate",
-            f"{limits.torque_rate} N m/s ramps {limits.torque} N m to zero in {limits.torque / limits.torque_rate:.3g} s, "
-            f"more than the {MAX_RAMP_TIME:g} s the safe state may take (torque / torque_rate <= {MAX_RAMP_TIME:g} s)"))
     if len(problems.found) > before:
         return None
     return ControllerJoint(name=name, **names, model=model, gains=gains, limits=limits)

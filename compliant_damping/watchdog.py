@@ -59,7 +59,11 @@ class Watchdog:
 
     def expired(self, t: float) -> Fault | None:
         """The fault at ``t`` if armed and silent for longer than ``timeout``, else None."""
-        if self.last_new is None or t - self.last_new <= self.timeout:
+        if self.last_new is None:
+            return None
+        if t < self.last_new:  # only sim time can go back (the steady clock cannot)
+            return Fault(FaultCode.WATCHDOG, f"clock went back {self.last_new - t:.3f} s since the last joint state")
+        if t - self.last_new <= self.timeout:
             return None
         silence = t - self.last_new
         if self._repeats:

@@ -88,8 +88,9 @@ class Harness:
         return node
 
     def controller(self, **overrides) -> ControllerNode:
-        """Controller with the bundled parameters, ``overrides`` (dotted keys via '__' in names), on sim time."""
-        values = {**config.node_parameters(DOC, config.CONTROLLER_NODE), **_dotted(overrides), "use_sim_time": True}
+        """Controller with the bundled parameters, ``overrides`` (dotted keys via '__' in names), on sim time
+        unless ``use_sim_time=False`` is among them."""
+        values = {**config.node_parameters(DOC, config.CONTROLLER_NODE), "use_sim_time": True, **_dotted(overrides)}
         return self._add(ControllerNode(context=self.context, parameter_overrides=_params(values), **self.scope))
 
     def simulated_joint(self, **overrides) -> SimulatedJointNode:

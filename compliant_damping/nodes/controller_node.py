@@ -277,6 +277,7 @@ class ControllerNode(LifecycleNode):
         publisher on the command topic; logs new faults."""
         if not self.active:
             return
+        self._on_watchdog()  # also here: a sim-time timer may not fire when /clock stops or jumps back
         steady = self._steady_now()
         fault = self.stall.expired(self._now(), steady) if self.sim_time and self.watchdog.armed else None
         if not self.watchdog.armed and not self._waiting_reported and steady - self._activated_at > WAITING_REPORT:
@@ -366,6 +367,9 @@ class ControllerNode(LifecycleNode):
         deleted = [p.name for p in changes if p.type_ == Parameter.Type.NOT_SET]
         if deleted:
             return f"{deleted[0]}: parameters cannot be deleted (set a new value instead)"
+        unknown = params.unknown_keys(self, config.CONTROLLER_NODE, changes)
+        if unknown is not None:
+            return unknown
         try:
             setup = config.controller_setup(params.values(self, self._keys, changes))
         except config.ConfigError as err:

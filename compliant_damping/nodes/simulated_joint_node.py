@@ -154,6 +154,9 @@ class SimulatedJointNode(Node):
         deleted = [p.name for p in changes if p.type_ == Parameter.Type.NOT_SET]
         if deleted:
             return f"{deleted[0]}: parameters cannot be deleted (set a new value instead)"
+        unknown = params.unknown_keys(self, config.SIM_NODE, changes)
+        if unknown is not None:
+            return unknown
         fixed = sorted(set(params.changed(self, self._keys, changes)) - self._plant_keys)
         if fixed:
             return f"{fixed[0]}: fixed after start; only plant parameters change at run time"
