@@ -50,7 +50,7 @@ from std_srvs.srv import Trigger
 
 from .. import config, controller
 from .. import joint_state_codec as codec
-from . import params, spin
+from . import params, spin, startup
 
 RUNTIME_KEYS = re.compile(r"^(law|watchdog_timeout|gain_ramp_time|[^.]+\.(gains|limits)\.\w+)$")
 
@@ -98,6 +98,7 @@ class ControllerNode(LifecycleNode):
                           self.create_timer(0.5, self._on_diagnostics),
                           self.create_service(Trigger, "~/stop", self._on_stop),
                           self.create_service(Trigger, "~/reset_fault", self._on_reset)]
+        startup.log_start(self, s.joint_names, s.law)
         return TransitionCallbackReturn.SUCCESS
 
     def on_activate(self, state):
