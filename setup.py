@@ -28,6 +28,7 @@ setup(
             "cdamp = compliant_damping.cli:main",
             "damping_controller = compliant_damping.nodes.controller_node:main",
             "simulated_joint = compliant_damping.nodes.simulated_joint_node:main",
+            "scenario_player = compliant_damping.nodes.scenario_player:main",
         ],
     },
 )
