@@ -6,6 +6,8 @@ ROS_DOMAIN_ID is a number (0-232 on Linux). A child pytest run with a scrubbed e
 shows that plain ``pytest`` (as ``colcon test`` calls it) passes the values on to its own children.
 """
 import os
+import re
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -64,3 +66,18 @@ def test_plain_pytest_keeps_a_given_domain(tmp_path):
 def test_plain_pytest_refuses_a_wide_range(tmp_path):
     out = _child_pytest(tmp_path, {"ROS_AUTOMATIC_DISCOVERY_RANGE": "SUBNET"}, [])
     assert out.returncode == pytest.ExitCode.USAGE_ERROR and "refusing to run" in out.stderr, out.stdout + out.stderr
+
+
+@pytest.mark.parametrize("given, expected", [(None, "57"), ("23", "23")])
+def test_makefile_keeps_the_users_domain(given, expected, tmp_path):
+    """GNU make manual, "Setting Variables": ``?=`` assigns only when the variable (environment
+    included) is undefined; the loopback variables are forced with ``:=`` whatever the user set."""
+    if shutil.which("make") is None:
+        pytest.skip("make is not installed")
+    env = {k: v for k, v in os.environ.items() if k not in NETWORK}
+    env.update({"ROS_LOCALHOST_ONLY": "0"} if given is None else {"ROS_DOMAIN_ID": given})
+    out = subprocess.run(["make", "-pn", "-f", str(HERE.parent / "Makefile"), "clean"], cwd=tmp_path, env=env,
+                         capture_output=True, text=True, timeout=60, check=True)
+    values = dict(re.findall(r"^(ROS_\w+) :?= (\S+)$", out.stdout, re.MULTILINE))
+    assert values["ROS_DOMAIN_ID"] == expected
+    assert values["ROS_LOCALHOST_ONLY"] == "1" and values["ROS_AUTOMATIC_DISCOVERY_RANGE"] == "LOCALHOST"
