@@ -15,6 +15,7 @@ setup(
         (f"share/{PACKAGE}/config", glob("config/*.yaml")),
         (f"share/{PACKAGE}/config/laws", glob("config/laws/*.yaml")),
         (f"share/{PACKAGE}/launch", glob("launch/*.py")),
+        (f"share/{PACKAGE}/urdf", glob("urdf/*.urdf")),
     ],
     install_requires=["setuptools"],
     zip_safe=True,
