@@ -23,7 +23,7 @@ setup(
     maintainer_email="maintainers@compliant-damping.invalid",
     description="Decoupled link-side damping and impedance for series-elastic joints.",
     license="Apache-2.0",
-    tests_require=["pytest"],
+    extras_require={"test": ["pytest"]},  # colcon test runs pytest when this names it (tests_require left setuptools 72)
     entry_points={
         "console_scripts": [
             "cdamp = compliant_damping.cli:main",
