@@ -46,7 +46,8 @@ def test_values_that_leave_loopback_are_refused(env):
 
 def _child_pytest(tmp_path, extra_env, expected):
     (tmp_path / "test_child.py").write_text(CHILD_TEST.format(expected=expected))
-    env = {k: v for k, v in os.environ.items() if k not in NETWORK}
+    # a clean child run: no discovery variables, none of the parent's options (colcon test sets PYTEST_ADDOPTS)
+    env = {k: v for k, v in os.environ.items() if k not in (*NETWORK, "PYTEST_ADDOPTS")}
     env.update(extra_env, PYTHONPATH=os.pathsep.join([str(HERE), env.get("PYTHONPATH", "")]))
     return subprocess.run([sys.executable, "-m", "pytest", "-p", "conftest", "-q", "-p", "no:cacheprovider",
                            str(tmp_path / "test_child.py")], cwd=tmp_path, env=env, capture_output=True, text=True,
