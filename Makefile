@@ -9,15 +9,20 @@ export RMW_IMPLEMENTATION := rmw_fastrtps_cpp
 PYTHON ?= python3.11
 VENV ?= .venv
 PY := $(VENV)/bin/python
-# Second environment: ROS 2 Jazzy wheels on CPython 3.12 (Jazzy's reference platform runs 3.12)
-PYTHON_JAZZY ?= python3.12
+# Second environment: ROS 2 Jazzy wheels on CPython 3.12 (Jazzy's reference platform runs 3.12):
+# python3.12 from PATH, else a pyenv-installed 3.12 that pyenv has not made global
+ifeq ($(origin PYTHON_JAZZY),undefined)
+PYTHON_JAZZY := $(or $(shell python3.12 -c 'import sys; print(sys.executable)' 2>/dev/null),$(shell \
+  PYENV_VERSION=$$(pyenv versions --bare 2>/dev/null | grep '^3\.12' | tail -n 1) \
+  python3.12 -c 'import sys; print(sys.executable)' 2>/dev/null),python3.12)
+endif
 VENV_JAZZY ?= .venv-jazzy
 
 .PHONY: demo test test-jazzy bench clean
 
 # $(call venv,PYTHON,VENV,REQUIREMENTS,DISTRIBUTION): a venv with the pinned wheels and the package
 define venv
-	@command -v $(1) >/dev/null || { echo "error: $(1) not found; the pinned ROS 2 $(4) wheels need it" >&2; exit 1; }
+	@$(1) -c pass 2>/dev/null || { echo "error: $(1) does not run; the pinned ROS 2 $(4) wheels need it" >&2; exit 1; }
 	$(1) -m venv $(2)
 	$(2)/bin/python -m pip install --quiet --disable-pip-version-check -r $(3)
 	$(2)/bin/python -m pip install --quiet --disable-pip-version-check --no-deps -e .
