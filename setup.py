@@ -15,6 +15,7 @@ setup(
         (f"share/{PACKAGE}/config", glob("config/*.yaml")),
         (f"share/{PACKAGE}/config/laws", glob("config/laws/*.yaml")),
         (f"share/{PACKAGE}/launch", glob("launch/*.py")),
+        (f"share/{PACKAGE}/urdf", glob("urdf/*.urdf")),
     ],
     install_requires=["setuptools"],
     zip_safe=True,
@@ -22,12 +23,13 @@ setup(
     maintainer_email="maintainers@compliant-damping.invalid",
     description="Decoupled link-side damping and impedance for series-elastic joints.",
     license="Apache-2.0",
-    tests_require=["pytest"],
+    extras_require={"test": ["pytest"]},  # colcon test runs pytest when this names it (tests_require left setuptools 72)
     entry_points={
         "console_scripts": [
             "cdamp = compliant_damping.cli:main",
             "damping_controller = compliant_damping.nodes.controller_node:main",
             "simulated_joint = compliant_damping.nodes.simulated_joint_node:main",
+            "scenario_player = compliant_damping.nodes.scenario_player:main",
         ],
     },
 )

@@ -5,6 +5,7 @@ import argparse
 import csv
 import dataclasses
 import json
+import os
 import sys
 
 from . import analysis, config, config_check, controller, scenarios, simulate, tuning
@@ -256,7 +257,12 @@ def parser() -> argparse.ArgumentParser:
 def main(argv=None) -> int:
     args = parser().parse_args(argv)
     try:
-        return args.run(args)
+        code = args.run(args)
+        sys.stdout.flush()  # a reader that closed the pipe (`cdamp keys | head`) shows here
+        return code
+    except BrokenPipeError:  # Python docs, "Note on SIGPIPE": no traceback, no second error at exit
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 1
     except (config.ConfigError, ValueError) as err:
         print(f"cdamp: error: {err}", file=sys.stderr)
         return 2

@@ -20,11 +20,11 @@ def load_changed(tmp_path, change):
 
 
 def ctrl(doc):
-    return doc[CONTROLLER_NODE]["ros__parameters"]
+    return doc[f"/**/{CONTROLLER_NODE}"]["ros__parameters"]
 
 
 def sim(doc):
-    return doc[SIM_NODE]["ros__parameters"]
+    return doc[f"/**/{SIM_NODE}"]["ros__parameters"]
 
 
 def refused(tmp_path, change) -> ConfigError:
@@ -127,7 +127,7 @@ def test_yaml_syntax_error(tmp_path):
 
 
 def test_missing_node_section(tmp_path):
-    err = refused(tmp_path, lambda d: d.pop(SIM_NODE))
+    err = refused(tmp_path, lambda d: d.pop(f"/**/{SIM_NODE}"))
     assert err.key == SIM_NODE
 
 

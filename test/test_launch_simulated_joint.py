@@ -57,7 +57,7 @@ def namespace(lock_step: bool) -> str:
 def generate_test_description(lock_step):
     folder = Path(tempfile.mkdtemp(prefix="cdamp_launch_test_"))
     doc = config.read(config.bundled())
-    doc[config.SIM_NODE]["ros__parameters"]["lock_step"] = lock_step
+    doc[f"/**/{config.SIM_NODE}"]["ros__parameters"]["lock_step"] = lock_step
     (folder / "joint.yaml").write_text(yaml.safe_dump(doc))
     (folder / "relaxed_watchdog.yaml").write_text(f"{config.CONTROLLER_NODE}:\n  ros__parameters:\n"
                                                   "    watchdog_timeout: 1.0\n")

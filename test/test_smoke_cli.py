@@ -1,5 +1,6 @@
 """The command-line tool runs the bundled scenario and reports the documented JSON fields."""
 import json
+import os
 import subprocess
 import sys
 
@@ -14,3 +15,18 @@ def test_simulate_json_fields():
     assert knee["overshoot"] is None and knee["settling_time_2pct"] is None
     # initial deflection 0.02 rad, no torque: the link swings forward past its start
     assert 0.0 < knee["max_link_position"] < 0.05
+
+
+def test_closed_pipe_exits_without_traceback():
+    """`cdamp keys | head`: the reader is gone. Python's documented recipe ("Note on SIGPIPE" in the
+    signal module docs) is exit status 1 and no traceback; the read end is closed before the start,
+    so every write fails with EPIPE."""
+    read_end, write_end = os.pipe()
+    os.close(read_end)
+    try:
+        out = subprocess.run([sys.executable, "-m", "compliant_damping.cli", "keys"], stdout=write_end,
+                             stderr=subprocess.PIPE, text=True, timeout=60)
+    finally:
+        os.close(write_end)
+    assert out.returncode == 1
+    assert out.stderr == ""

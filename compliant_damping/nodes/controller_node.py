@@ -71,7 +71,7 @@ from std_srvs.srv import Trigger
 from .. import config, controller, safety
 from .. import joint_state_codec as codec
 from ..watchdog import ClockStall, Watchdog, stall_timeout
-from . import params, spin
+from . import params, spin, startup
 
 RUNTIME_KEYS = re.compile(r"^(law|watchdog_timeout|gain_ramp_time|[^.]+\.(gains|limits)\.\w+)$")
 WAITING_REPORT = 1.0     # s of steady time active without a joint state before it is reported
@@ -135,6 +135,7 @@ class ControllerNode(LifecycleNode):
                           self.create_timer(SUPERVISE_PERIOD, self._on_supervise, clock=self._steady),
                           self.create_service(Trigger, "~/stop", self._on_stop),
                           self.create_service(Trigger, "~/reset_fault", self._on_reset)]
+        startup.log_start(self, s.joint_names, s.law)
         return TransitionCallbackReturn.SUCCESS
 
     def on_activate(self, state):

@@ -48,7 +48,7 @@ from .. import config
 from .. import joint_state_codec as codec
 from ..model import JointParams
 from ..plant import Plant
-from . import params, spin
+from . import params, spin, startup
 
 REPEAT_AFTER = 0.2  # s of wall time without an answering command before the state is sent again
 MAX_CATCH_UP = 20  # periods a late real-time tick may advance at once
@@ -84,6 +84,7 @@ class SimulatedJointNode(Node):
         else:
             self._start_ns = self.get_clock().now().nanoseconds  # plant time 0 on the node clock
             self.create_timer(self.plant.period, self._on_tick)
+        startup.log_start(self, names)
 
     def _state_time(self) -> float:
         """Time of the last published state (s): sim time in lock step, the node clock otherwise."""

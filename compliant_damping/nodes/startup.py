@@ -1,0 +1,29 @@
+"""The one start-up log line of each node: its parameter files, law and joints."""
+from __future__ import annotations
+
+import sys
+
+
+def params_files(argv) -> list:
+    """Paths given as ``--params-file PATH`` inside ``--ros-args ... [--]`` sections of ``argv``, in order."""
+    files, ros = [], False
+    for arg, following in zip(argv, [*argv[1:], None]):
+        if arg in ("--ros-args", "--"):
+            ros = arg == "--ros-args"
+        elif ros and arg == "--params-file" and following is not None:
+            files.append(following)
+    return files
+
+
+def start_line(files, joint_names, law: str | None = None) -> str:
+    """``parameter file(s) A, B; law L; joints j1, j2`` (the law part only for a controller)."""
+    parts = [f"parameter file(s) {', '.join(files) if files else 'none (overrides and defaults only)'}"]
+    if law is not None:
+        parts.append(f"law {law}")
+    parts.append(f"joints {', '.join(joint_names)}")
+    return "; ".join(parts)
+
+
+def log_start(node, joint_names, law: str | None = None, argv=None) -> None:
+    """Log :func:`start_line` at info level, the files read from ``argv`` (default ``sys.argv``)."""
+    node.get_logger().info(start_line(params_files(sys.argv if argv is None else argv), joint_names, law))
