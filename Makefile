@@ -46,6 +46,7 @@ test-jazzy: $(VENV_JAZZY)/.installed
 
 bench: $(VENV)/.installed
 	$(PY) benchmarks/simulator_speed.py
+	$(PY) benchmarks/law_tick_cost.py
 	$(PY) benchmarks/node_latency.py
 
 clean:

@@ -73,6 +73,8 @@ class JointController:
         """Motor torque command (N m) for reading ``s``, reference ``ref`` = (q_d, q_d', q_d''), at stamp time ``t``.
 
         ``dt`` (s) advances the law's states; the slew limit counts stamp time (safety.SafetyFilter).
+        A reference position outside the position limits is clipped to the nearer limit (its
+        derivatives kept, as joint_state_codec.ReferenceSchedule does), offline and over ROS alike.
         """
         tau = None  # in fault or on a bad reading the filter commands the safe torque
         if self.safety.fault is None and s.is_finite():
@@ -81,6 +83,9 @@ class JointController:
                 # laws cannot take it (math.sin(inf) raises)
                 self.safety.trip(Fault(FaultCode.NON_FINITE_REFERENCE, "non-finite reference"))
             else:
+                lim = self.safety.limits
+                if not lim.position_lower <= q_d <= lim.position_upper:
+                    ref = (min(max(q_d, lim.position_lower), lim.position_upper), dq_d, ddq_d)
                 gains = self._apply_ramp(t)
                 if self._runner is None:
                     self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s,

@@ -33,11 +33,11 @@ def _changed(change):
 
 
 def _ctrl(doc):
-    return doc[CONTROLLER_NODE]["ros__parameters"]
+    return doc[f"/**/{CONTROLLER_NODE}"]["ros__parameters"]
 
 
 def _sim(doc):
-    return doc[SIM_NODE]["ros__parameters"]
+    return doc[f"/**/{SIM_NODE}"]["ros__parameters"]
 
 
 def _run(capsys, *argv):
