@@ -176,7 +176,7 @@ def test_position_limit_beyond_the_stop_reach(tmp_path, capsys, side, value, rea
 def test_position_rule_needs_both_sections(tmp_path, capsys):
     """A controller-only file cannot be checked against stops it does not have."""
     doc = _changed(lambda d: _ctrl(d)["knee"]["limits"].update(position_upper=5.0))
-    del doc[SIM_NODE]
+    del doc[f"/**/{SIM_NODE}"]
     assert _run(capsys, _write(tmp_path, doc))[0] == 0
 
 

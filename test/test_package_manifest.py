@@ -12,7 +12,7 @@ import xml.etree.ElementTree as ET
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
-LOCAL = {"compliant_damping", "conftest", "node_harness"}
+LOCAL = {"compliant_damping"} | {p.stem for p in (ROOT / "test").glob("*.py")}  # the package and test helpers
 # import name -> (rosdep key, PyPI distribution pinned in requirements-common.txt or None for ROS wheels)
 KEYS = {
     "rclpy": ("rclpy", None), "rcl_interfaces": ("rcl_interfaces", None),
