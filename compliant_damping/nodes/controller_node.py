@@ -58,7 +58,6 @@ from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus, KeyValue
 from rclpy.clock import Clock, ClockType
 from rclpy.lifecycle import Node as LifecycleNode
 from rclpy.lifecycle import TransitionCallbackReturn
-from rclpy.parameter import Parameter
 from rclpy.publisher import Publisher
 from rclpy.qos import HistoryPolicy, QoSProfile, ReliabilityPolicy
 from rclpy.service import Service
@@ -358,19 +357,10 @@ class ControllerNode(LifecycleNode):
         return c.reset()
 
     def _on_set_parameters(self, changes):
-        reason = self._refusal(changes)
-        if reason is not None:
-            self.get_logger().warning(f"parameter change refused: {reason}")
-        return params.result(reason)
+        return params.answer(self, config.CONTROLLER_NODE, changes, self._refusal)
 
     def _refusal(self, changes) -> str | None:
         """Why ``changes`` cannot be applied, or None after applying them."""
-        deleted = [p.name for p in changes if p.type_ == Parameter.Type.NOT_SET]
-        if deleted:
-            return f"{deleted[0]}: parameters cannot be deleted (set a new value instead)"
-        unknown = params.unknown_keys(self, config.CONTROLLER_NODE, changes)
-        if unknown is not None:
-            return unknown
         try:
             setup = config.controller_setup(params.values(self, self._keys, changes))
         except config.ConfigError as err:

@@ -88,3 +88,16 @@ def changed(node, keys, params) -> dict:
 def result(reason: str | None) -> SetParametersResult:
     """Accept (reason None) or refuse with the reason."""
     return SetParametersResult(successful=reason is None, reason=reason or "")
+
+
+def answer(node, node_name: str, changes, apply) -> SetParametersResult:
+    """The set-parameters answer of both nodes: deletes and unknown keys are refused outright,
+    then ``apply(changes)`` gives the reason to refuse (or None once applied); refusals are logged."""
+    deleted = [p.name for p in changes if p.type_ == Parameter.Type.NOT_SET]
+    reason = (f"{deleted[0]}: parameters cannot be deleted (set a new value instead)" if deleted
+              else unknown_keys(node, node_name, changes))
+    if reason is None:
+        reason = apply(changes)
+    if reason is not None:
+        node.get_logger().warning(f"parameter change refused: {reason}")
+    return result(reason)

@@ -39,7 +39,6 @@ from dataclasses import fields
 from builtin_interfaces.msg import Time
 from rclpy.clock import Clock, ClockType
 from rclpy.node import Node
-from rclpy.parameter import Parameter
 from rclpy.qos import QoSProfile, qos_profile_sensor_data
 from rosgraph_msgs.msg import Clock as ClockMsg
 from sensor_msgs.msg import JointState
@@ -145,19 +144,10 @@ class SimulatedJointNode(Node):
         self._external(msg, self.plant.add_impulse)
 
     def _on_set_parameters(self, changes):
-        reason = self._refusal(changes)
-        if reason is not None:
-            self.get_logger().warning(f"parameter change refused: {reason}")
-        return params.result(reason)
+        return params.answer(self, config.SIM_NODE, changes, self._refusal)
 
     def _refusal(self, changes) -> str | None:
         """Why ``changes`` cannot be applied (deletes, fixed keys, invalid values), or None after applying them."""
-        deleted = [p.name for p in changes if p.type_ == Parameter.Type.NOT_SET]
-        if deleted:
-            return f"{deleted[0]}: parameters cannot be deleted (set a new value instead)"
-        unknown = params.unknown_keys(self, config.SIM_NODE, changes)
-        if unknown is not None:
-            return unknown
         fixed = sorted(set(params.changed(self, self._keys, changes)) - self._plant_keys)
         if fixed:
             return f"{fixed[0]}: fixed after start; only plant parameters change at run time"
