@@ -61,11 +61,6 @@ class JointController:
     def fault(self) -> Fault | None:
         return self.safety.fault
 
-    @property
-    def last_torque(self) -> float:
-        """The last command sent (N m)."""
-        return self.safety.last_torque
-
     def _accel_bound(self, limits: Limits) -> float:
         return motor_accel_bound(limits, self.model.motor_inertia, self.model.spring_stiffness)
 

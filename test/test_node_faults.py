@@ -225,3 +225,26 @@ def test_joint_state_storm_keeps_latency_bounded_and_counts_drops(ros):
           f"state-to-command latency p50 {latencies[len(latencies) // 2] * 1e3:.2f} ms, p99 {p99 * 1e3:.2f} ms")
     assert ctrl.dropped > 0 and p99 < 0.05
     _safe_commands(ros)
+
+
+def test_a_stopped_sim_clock_is_caught_on_the_steady_clock(ros):
+    """Lock step without its simulated joint: /clock and joint states stop, so sim time stands
+    still and no sim-time watchdog can fire. watchdog.stall_timeout (2 s for the bundled 50 ms)
+    of steady time later the controller faults (it stayed active, commanding, for ever)."""
+    ctrl = _active_controller(ros)
+    _settle(ros, ctrl, 0.0)
+    start = time.monotonic()
+    assert ros.spin_until(lambda: ctrl.bank[0].fault is not None, 5.0)
+    waited = time.monotonic() - start
+    print(f"stopped sim clock caught after {waited:.2f} s of wall time")
+    assert ctrl.bank[0].fault.code is FaultCode.CLOCK_STOPPED and 2.0 <= waited <= 2.0 + 0.5
+
+
+def test_a_fault_is_logged_once_with_its_code_and_reason(ros, capfd):
+    ctrl = _active_controller(ros)
+    t = _settle(ros, ctrl, 0.0, n=5)
+    for k in range(1, 6):
+        _tick(ros, ctrl, t + k * PERIOD, theta=0.5)  # deflection 0.5 rad, limit 0.15 rad
+    assert ctrl.bank[0].fault.code is FaultCode.DEFLECTION
+    logged = [line for line in capfd.readouterr().err.splitlines() if "safe mode" in line]
+    assert len(logged) == 1 and "deflection: spring deflection +0.5 rad" in logged[0], logged

@@ -263,6 +263,11 @@ class ControllerNode(LifecycleNode):
         then every control period (trip, ramp the torque down) until joint states come back."""
         if not self.active or not self.watchdog.armed:
             return
+        self._check_watchdog()
+        self._feed_watchdog(self.ticks.period)
+
+    def _check_watchdog(self):
+        """Trip every joint and step the torque down when the watchdog has expired."""
         fault = self.watchdog.expired(self._watch_now())
         if fault is not None:
             for c in self.bank:
@@ -270,14 +275,14 @@ class ControllerNode(LifecycleNode):
             t = max(self._now(), self._newest_command_time() + self.ticks.period)
             self._publish([c.ramp_down(t) for c in self.bank], _stamp(round(t * 1e9)))
             self._log_faults()
-        self._feed_watchdog(self.ticks.period)
 
     def _on_supervise(self):
         """Steady-clock checks: a stopped sim clock, activation without joint states, a second
         publisher on the command topic; logs new faults."""
         if not self.active:
             return
-        self._on_watchdog()  # also here: a sim-time timer may not fire when /clock stops or jumps back
+        if self.watchdog.armed:
+            self._check_watchdog()  # also here: a sim-time timer may not fire when /clock stops or jumps back
         steady = self._steady_now()
         fault = self.stall.expired(self._now(), steady) if self.sim_time and self.watchdog.armed else None
         if not self.watchdog.armed and not self._waiting_reported and steady - self._activated_at > WAITING_REPORT:
