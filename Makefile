@@ -10,7 +10,7 @@ VENV ?= .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test bench clean
+.PHONY: demo test bench soak clean
 
 $(STAMP): requirements.txt setup.py
 	@command -v $(PYTHON) >/dev/null || { echo "error: $(PYTHON) not found; the ROS 2 Kilted wheels need CPython 3.11" >&2; exit 1; }
@@ -28,6 +28,11 @@ test: $(STAMP)
 bench: $(STAMP)
 	$(PY) benchmarks/simulator_speed.py
 	$(PY) benchmarks/node_latency.py
+
+# Not part of bench or test: ten minutes of both nodes at 1 kHz (SOAK_SECONDS to shorten).
+SOAK_SECONDS ?= 600
+soak: $(STAMP)
+	$(PY) benchmarks/soak.py --seconds $(SOAK_SECONDS)
 
 clean:
 	rm -rf $(VENV) results .pytest_cache
