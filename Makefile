@@ -18,7 +18,7 @@ PYTHON_JAZZY := $(or $(shell python3.12 -c 'import sys; print(sys.executable)' 2
 endif
 VENV_JAZZY ?= .venv-jazzy
 
-.PHONY: demo test test-jazzy bench clean
+.PHONY: demo test test-jazzy bench soak clean
 
 # $(call venv,PYTHON,VENV,REQUIREMENTS,DISTRIBUTION): a venv with the pinned wheels and the package
 define venv
@@ -48,6 +48,11 @@ bench: $(VENV)/.installed
 	$(PY) benchmarks/simulator_speed.py
 	$(PY) benchmarks/law_tick_cost.py
 	$(PY) benchmarks/node_latency.py
+
+# Not part of bench or test: ten minutes of both nodes at 1 kHz (SOAK_SECONDS to shorten).
+SOAK_SECONDS ?= 600
+soak: $(STAMP)
+	$(PY) benchmarks/soak.py --seconds $(SOAK_SECONDS)
 
 clean:
 	rm -rf $(VENV) $(VENV_JAZZY) results .pytest_cache

@@ -48,6 +48,9 @@ from .sensors import SensorParams
 
 CONTROLLER_NODE = "damping_controller"
 SIM_NODE = "simulated_joint"
+# Input of a lock-step simulated joint paced by the scenario player (nodes/scenario_player.py):
+# start the joint with ``-r motor_effort:=<PACED_EFFORT>`` and the player relays the commands.
+PACED_EFFORT = "paced_motor_effort"
 
 
 

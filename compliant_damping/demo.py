@@ -2,8 +2,9 @@
 
 Per law, three processes on loopback DDS (the environment must say so; see :func:`check_env`):
 the simulated joint in lock step, the controller on sim time with that law, and the scenario
-player, which activates the controller, streams the scenario's reference on ``link_reference``
-and records ``joint_states`` and ``motor_effort``. The same scenario then runs offline
+player, which activates the controller, streams the scenario's reference on ``link_reference``,
+records ``joint_states`` and ``motor_effort`` and paces the loop (the joint takes its commands
+from the player on config.PACED_EFFORT, see nodes/scenario_player.py). The same scenario then runs offline
 (simulate.simulate); both are summarised by simulate.metrics. Writes ``summary.json``, the
 processes' logs and ``impact.png`` (link position and motor torque around the impact, one trace
 per law) to the output folder. No ROS imports here: the ROS work happens in the child processes.
@@ -83,7 +84,7 @@ def run_over_ros(law: str, params_file: Path, out: Path, timeout: float) -> dict
     ros_args = ["--ros-args", "-r", f"__ns:={ns}", "-r", f"/clock:={ns}/clock", "-r", f"/diagnostics:={ns}/diagnostics"]
     commands = {
         "simulated_joint": module("simulated_joint_node", *ros_args, "--params-file", str(node_file),
-                                  "-p", "lock_step:=true"),
+                                  "-p", "lock_step:=true", "-r", f"motor_effort:={config.PACED_EFFORT}"),
         "controller": module("controller_node", *ros_args, "--params-file", str(node_file),
                              "-p", "use_sim_time:=true", "-p", f"law:={law}"),
     }

@@ -4,8 +4,15 @@ Per law, ``python -m compliant_damping.nodes.simulated_joint_node`` (lock step) 
 ``python -m compliant_damping.nodes.controller_node`` (sim time, the law set by ``-p law:=``)
 run as child processes in a namespace of their own, with the environment inherited: the test
 reads each child's environment from /proc and checks the loopback discovery settings and the
-domain. The test process then plays the bundled end_stop_impact scenario on ``link_reference``
-and records ``joint_states`` and ``motor_effort`` (nodes.scenario_player.play, in process).
+domain. It reads it only once the child's node is on the ROS graph: /proc/PID/environ is empty
+until the kernel has finished the child's exec, and Popen can return before that (vfork: the
+parent resumes when the new memory map is installed, before the environment is laid out in it;
+on the development machine 77 of 100 reads right after Popen of a short child came back empty). A node on the graph
+has run Python code, so its exec is complete. The test process then plays the bundled
+end_stop_impact scenario on ``link_reference``, records ``joint_states`` and ``motor_effort``
+and paces the loop (nodes.scenario_player.play, in process; the joint takes its commands from
+the player on config.PACED_EFFORT, so a test process short of CPU slows the run down instead of
+letting the controller run on a stale reference).
 
 Checks, on the bundled knee:
 
@@ -23,6 +30,7 @@ import dataclasses
 import os
 import subprocess
 import sys
+import time
 
 import numpy as np
 import pytest
@@ -44,7 +52,7 @@ DT = 1.0 / CTRL.control_rate
 
 
 def _environ(pid: int) -> dict:
-    """Environment of a running child process (Linux /proc)."""
+    """Environment of a running child process whose exec has completed (Linux /proc)."""
     raw = open(f"/proc/{pid}/environ", "rb").read().split(b"\0")
     return dict(item.decode().split("=", 1) for item in raw if b"=" in item)
 
@@ -56,7 +64,7 @@ def run_over_ros(law: str, folder) -> simulate.SimResult:
                 "--params-file", str(params)]
     commands = {
         "simulated_joint": [sys.executable, "-m", "compliant_damping.nodes.simulated_joint_node", *ros_args,
-                            "-p", "lock_step:=true"],
+                            "-p", "lock_step:=true", "-r", f"motor_effort:={config.PACED_EFFORT}"],
         "controller": [sys.executable, "-m", "compliant_damping.nodes.controller_node", *ros_args,
                        "-p", "use_sim_time:=true", "-p", f"law:={law}"],
     }
@@ -65,12 +73,15 @@ def run_over_ros(law: str, folder) -> simulate.SimResult:
         for name, cmd in commands.items():
             procs[name] = subprocess.Popen(cmd, stdout=open(folder / f"{law}.{name}.log", "w"),
                                            stderr=subprocess.STDOUT)  # environment inherited
-        for name, proc in procs.items():
-            child = _environ(proc.pid)
-            assert {k: child.get(k) for k in NETWORK_ENV} == {k: os.environ[k] for k in NETWORK_ENV}, name
         rclpy.init()
         try:
             node = rclpy.create_node("cross_process_player", namespace=ns)
+            on_graph = lambda: {config.SIM_NODE, config.CONTROLLER_NODE} <= {  # noqa: E731
+                n for n, space in node.get_node_names_and_namespaces() if space == ns}
+            assert player.spin_until(node, on_graph, time.monotonic() + 30.0), f"nodes not up; logs in {folder}"
+            for name, proc in procs.items():
+                child = _environ(proc.pid)
+                assert {k: child.get(k) for k in NETWORK_ENV} == {k: os.environ[k] for k in NETWORK_ENV}, name
             args = argparse.Namespace(config=None, scenario=SCENARIO, duration=None, lead=200, timeout=50.0,
                                       out=str(folder / f"{law}.npz"))
             assert player.play(node, args) == 0, f"run incomplete; logs in {folder}"

@@ -18,7 +18,7 @@ from rclpy.qos import QoSProfile
 from rosgraph_msgs.msg import Clock
 from sensor_msgs.msg import JointState
 
-from command_properties import check_commands
+from command_properties import Command, check_commands
 from compliant_damping import config
 from compliant_damping.safety import FaultCode
 from node_harness import ros, seconds, stamp  # noqa: F401 (ros is a fixture)
@@ -31,7 +31,8 @@ SLEW = LIMITS["knee_motor"].torque_rate
 
 
 def _safe_commands(ros, period=PERIOD):
-    violations = check_commands(ros.probe.efforts, LIMITS, period)
+    commands = [Command(seconds(m.header.stamp), dict(zip(m.name, m.effort))) for m in ros.probe.efforts]
+    violations = check_commands(commands, LIMITS, period)
     assert not violations, violations[:5]
 
 

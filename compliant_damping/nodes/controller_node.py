@@ -18,7 +18,8 @@ Topics (relative names):
 * ``motor_effort`` out (sensor_msgs/JointState: command names, effort N m; header.stamp = the
   stamp of the joint state answered; reliable, keep last 1000 so a slow recorder loses nothing),
   ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output),
-  ``/diagnostics`` (2 Hz, one status per joint: mode, fault code and reason, counters).
+  ``/diagnostics`` (2 Hz of steady time, so they go on when a sim clock stops; one status per
+  joint: mode, fault code and reason, counters).
 
 Services (std_srvs/Trigger): ``~/stop`` (safe mode now), ``~/reset_fault`` (refuses with the
 reason: not active, no fresh joint state, or the fault that stays).
@@ -130,7 +131,7 @@ class ControllerNode(LifecycleNode):
                           self.create_subscription(JointState, "joint_states", self._on_state, NEWEST_ONLY),
                           self.create_subscription(JointState, "link_reference", self._on_reference,
                                                    QoSProfile(depth=1000)),
-                          self.create_timer(0.5, self._on_diagnostics),
+                          self.create_timer(0.5, self._on_diagnostics, clock=self._steady),
                           self.create_timer(SUPERVISE_PERIOD, self._on_supervise, clock=self._steady),
                           self.create_service(Trigger, "~/stop", self._on_stop),
                           self.create_service(Trigger, "~/reset_fault", self._on_reset)]

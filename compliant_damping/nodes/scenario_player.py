@@ -2,13 +2,27 @@
 records the loop, for ``cdamp demo`` (compliant_damping.demo) and by hand.
 
 It configures and activates ``damping_controller`` (lifecycle services), streams the
-reference on ``link_reference`` stamped with the sim time at which each sample applies
-(``--lead`` ticks ahead of the latest joint state, so the run does not depend on message
-timing), records ``joint_states`` and ``motor_effort`` until the sim time reaches the
-scenario's duration, deactivates the controller and writes the series to an ``.npz`` file:
+reference on ``link_reference`` stamped with the sim time at which each sample applies,
+records ``joint_states`` and ``motor_effort`` until the sim time reaches the scenario's
+duration, deactivates the controller and writes the series to an ``.npz`` file:
 ``t, q, dq, theta, dtheta, tau_s`` (states, one row per tick, columns per joint) and
 ``t_cmd, tau_m`` (commands by the stamp of the state they answer). Meant for a lock-step
 simulated joint; exits 1 when the run does not finish within ``--timeout`` s of wall time.
+
+The player paces the loop, so the run does not depend on how the processes are scheduled.
+The lock-step joint must take its commands from the player: start it with
+``-r motor_effort:=paced_motor_effort`` (config.PACED_EFFORT). The player records each
+``motor_effort`` command and relays it there only after it has published the reference up to
+``--lead`` ticks past the tick that command leads to. So the loop can never get ahead of the
+player: every reference sample goes out at least ``--lead`` round trips of the loop (joint,
+controller, player) before the controller needs it, and the recorder cannot lose a state or a
+command, since the joint advances only on what the player relays. (Before, the player only
+published ``--lead`` ticks ahead of the newest state it had seen, while the joint and the
+controller ran on without it: a player starved of CPU for longer than ``--lead`` ticks of the
+loop let the controller use a stale reference.) What remains assumed is reliable in-order
+delivery on ``link_reference`` within those ``--lead`` round trips. Waiting for the controller's
+acknowledgement (``Publisher.wait_for_all_acked``) would make that certain too, but it was
+tried and stalled: the acknowledgements came late (up to 1 s) or not at all.
 
     python -m compliant_damping.nodes.scenario_player --scenario end_stop_impact --out run.npz
 
@@ -38,23 +52,31 @@ def _ns(stamp) -> int:
 
 
 class ScenarioPlayer:
-    def __init__(self, node, scenario, ctrl_setup, sim_setup, lead: int):
-        self.node, self.scenario, self.lead = node, scenario, lead
+    """Reference publisher, recorder and pace-maker of one lock-step run.
+
+    lead: reference samples published ahead of the loop (>= 1); ticks: run length (state periods).
+    """
+
+    def __init__(self, node, scenario, ctrl_setup, sim_setup, lead: int, ticks: int):
+        if lead < 1:
+            raise ValueError(f"lead: need at least 1 reference sample ahead (got {lead})")
+        self.node, self.scenario, self.lead, self.ticks = node, scenario, lead, ticks
         self.joints = ctrl_setup.joint_names
         self.commands = [j.command for j in ctrl_setup.joints]
         self.decoder = codec.StateDecoder(ctrl_setup.joints, spring_torque_from_effort=False)
         self.period_ns = round(1e9 / sim_setup.state_rate)
         self.states, self.efforts = {}, {}  # tick -> readings / torques
         self.sent = 0                       # reference ticks published so far
-        self.streaming = False              # set once the controller listens on link_reference
         qos = QoSProfile(depth=1000)
         self.reference = node.create_publisher(JointState, "link_reference", qos)
+        self.joint_input = node.create_publisher(JointState, config.PACED_EFFORT, qos)
         node.create_subscription(JointState, "joint_states", self._on_state, qos)
         node.create_subscription(JointState, "motor_effort", self._on_effort, qos)
 
-    def send_ahead(self, tick: int) -> None:
-        """Publish reference samples up to ``tick + lead``."""
-        while self.sent <= tick + self.lead:
+    def publish_through(self, tick: int) -> None:
+        """Publish reference samples up to ``tick + lead`` (never past the run's last tick, after which the last sample holds)."""
+        last = min(tick + self.lead, self.ticks)
+        while self.sent <= last:
             t = self.sent * self.period_ns * 1e-9
             samples = [r.sample(t) for r in self.scenario.references]
             msg = JointState(name=self.joints, position=[s[0] for s in samples], velocity=[s[1] for s in samples])
@@ -70,13 +92,15 @@ class ScenarioPlayer:
             tau_s = codec.pick_values(msg.name, msg.effort, self.joints)
             tau_s = [float("nan")] * len(self.joints) if isinstance(tau_s, codec.Rejection) else tau_s
             self.states[tick] = [(*s[:4], v) for s, v in zip(samples, tau_s)]
-        if self.streaming:
-            self.send_ahead(tick)
 
     def _on_effort(self, msg):
+        """Record the command; publish the reference ahead of the tick it leads to, then relay it to the joint."""
+        tick = round(_ns(msg.header.stamp) / self.period_ns)
         taus = codec.pick_values(msg.name, msg.effort, self.commands)
         if not isinstance(taus, codec.Rejection):
-            self.efforts[round(_ns(msg.header.stamp) / self.period_ns)] = taus
+            self.efforts[tick] = taus
+        self.publish_through(tick + 1)
+        self.joint_input.publish(msg)
 
     def arrays(self, ticks: int) -> dict:
         """Recorded series over the first ``ticks`` ticks (all must be present)."""
@@ -113,7 +137,7 @@ def play(node, args) -> int:
     sim_setup = config.sim_setup(config.node_parameters(doc, config.SIM_NODE))
     scenario = scenarios.make(args.scenario, sim_setup.joints)
     ticks = round((args.duration or scenario.duration) * sim_setup.state_rate)
-    player = ScenarioPlayer(node, scenario, ctrl_setup, sim_setup, args.lead)
+    player = ScenarioPlayer(node, scenario, ctrl_setup, sim_setup, args.lead, ticks)
     deadline = time.monotonic() + args.timeout
     log = node.get_logger()
     if not transition(node, Transition.TRANSITION_CONFIGURE, deadline):
@@ -126,8 +150,7 @@ def play(node, args) -> int:
     if not spin_until(node, heard, deadline):  # the joint repeats its first state until answered
         log.error("no first joint state, or no controller publishing motor_effort")
         return 1
-    player.streaming = True
-    player.send_ahead(0)  # stamped samples wait in the controller until their time
+    player.publish_through(0)  # stamped samples wait in the controller until their time
     if not transition(node, Transition.TRANSITION_ACTIVATE, deadline):
         log.error("could not activate the controller")
         return 1
@@ -145,7 +168,7 @@ def main(argv=None) -> int:
     p.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
     p.add_argument("--scenario", choices=scenarios.SCENARIOS, default="end_stop_impact")
     p.add_argument("--duration", type=float, help="s of sim time (default: the scenario's)")
-    p.add_argument("--lead", type=int, default=200, help="reference ticks sent ahead of the latest state")
+    p.add_argument("--lead", type=int, default=200, help="reference ticks published ahead of the loop (>= 1)")
     p.add_argument("--timeout", type=float, default=60.0, help="s of wall time before giving up")
     p.add_argument("--out", required=True, help=".npz file to write")
     argv = sys.argv if argv is None else argv
