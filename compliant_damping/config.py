@@ -341,12 +341,16 @@ def controller_check(params: dict) -> Checked:
     return Checked(setup, tuple(problems.found))
 
 
-def controller_setup(params: dict) -> ControllerSetup:
-    """Validated controller setup from flat (dotted) parameters; raises the first ConfigError."""
-    checked = controller_check(params)
+def _setup(checked: Checked):
+    """The setup of ``checked``; raises its first problem (a ConfigError) if it has any."""
     if checked.problems:
         raise checked.problems[0]
     return checked.setup
+
+
+def controller_setup(params: dict) -> ControllerSetup:
+    """Validated controller setup from flat (dotted) parameters; raises the first ConfigError."""
+    return _setup(controller_check(params))
 
 
 @dataclass(frozen=True)
@@ -398,10 +402,7 @@ def sim_check(params: dict) -> Checked:
 
 def sim_setup(params: dict) -> SimSetup:
     """Validated simulated-joint setup from flat (dotted) parameters; raises the first ConfigError."""
-    checked = sim_check(params)
-    if checked.problems:
-        raise checked.problems[0]
-    return checked.setup
+    return _setup(sim_check(params))
 
 
 def flatten(tree: dict, prefix: str = "") -> dict:
