@@ -65,6 +65,50 @@ class NominalModel:
         """dg/dq (N m/rad)."""
         return self.gravity_torque * math.cos(q + self.gravity_offset)
 
+    def gravity_rate(self, q: float, dq: float) -> float:
+        """d g(q)/dt = g'(q) q' (N m/s)."""
+        return self.gravity_slope(q) * dq
+
+    def link_acceleration(self, q: float, dq: float, tau_s: float) -> float:
+        """Model-based link acceleration (tau_s - g(q)) / M (rad/s^2)."""
+        return (tau_s - self.gravity(q)) / self.link_inertia
+
+    def link_jerk(self, q: float, dq: float, tau_s: float, dtau_s: float) -> float:
+        """Model-based link jerk (tau_s' - g'(q) q') / M (rad/s^3)."""
+        return (dtau_s - self.gravity_slope(q) * dq) / self.link_inertia
+
+
+@dataclass(frozen=True)
+class ChainNominal:
+    """The controller's model of a robot with coupled links: the interface of
+    :class:`NominalModel` on arrays (one entry per joint).
+
+    ``links`` is a link-dynamics object (dynamics.links.IndependentLinks or
+    dynamics.urdf_chain.UrdfChain); ``motor_inertia`` B and ``spring_stiffness`` K are diagonal.
+    The acceleration is forward dynamics (ABA) with the spring torques; the jerk comes from its
+    analytic derivatives (design notes, section 4): dFD/dq q' + dFD/dq' q''_m + M^-1 tau_s'.
+    """
+
+    links: object
+    motor_inertia: np.ndarray
+    spring_stiffness: np.ndarray
+
+    def gravity(self, q: np.ndarray) -> np.ndarray:
+        """g(q) (N m)."""
+        return self.links.gravity(q)
+
+    def gravity_rate(self, q: np.ndarray, dq: np.ndarray) -> np.ndarray:
+        """d g(q)/dt = (dg/dq) q' (N m/s)."""
+        return self.links.gravity_jacobian(q) @ dq
+
+    def link_acceleration(self, q, dq, tau_s):
+        """Forward dynamics with the spring torques (rad/s^2)."""
+        return self.links.forward(q, dq, tau_s)
+
+    def link_jerk(self, q, dq, tau_s, dtau_s):
+        """Derivative of the forward dynamics along the motion (rad/s^3)."""
+        return self.links.jerk(q, dq, tau_s, dtau_s)
+
 
 @dataclass(frozen=True)
 class Gains:
@@ -85,7 +129,7 @@ def _eta_regulation(model: NominalModel, gains: Gains, ref, eta: float, deta: fl
     k = model.spring_stiffness
     g_d = model.gravity(q_d)
     eta_d = q_d + g_d / k
-    deta_d = dq_d * (1.0 + model.gravity_slope(q_d) / k)
+    deta_d = dq_d + model.gravity_rate(q_d, dq_d) / k
     return g_d - gains.motor_stiffness * (eta - eta_d) - gains.motor_damping * (deta - deta_d)
 
 
@@ -123,7 +167,7 @@ class MotorPD(Law):
         q_d, dq_d, _ = ref
         g_d = m.gravity(q_d)
         theta_d = q_d + g_d / m.spring_stiffness
-        dtheta_d = dq_d * (1.0 + m.gravity_slope(q_d) / m.spring_stiffness)
+        dtheta_d = dq_d + m.gravity_rate(q_d, dq_d) / m.spring_stiffness
         return g.motor_stiffness * (theta_d - s.theta) - g.motor_damping * (s.dtheta - dtheta_d) + g_d
 
 
@@ -136,15 +180,18 @@ class _Transformed(Law):
 
     def output(self, s, ref, z):
         m = self.model
-        k, M, B = m.spring_stiffness, m.link_inertia, m.motor_inertia
+        k, B = m.spring_stiffness, m.motor_inertia
         spring = s.tau_s if self.torque_sensor else k * (s.theta - s.q)
-        ddq = (spring - m.gravity(s.q)) / M
-        dddq = (k * (s.dtheta - s.dq) - m.gravity_slope(s.q) * s.dq) / M
+        ddq = m.link_acceleration(s.q, s.dq, spring)
+        dddq = m.link_jerk(s.q, s.dq, spring, k * (s.dtheta - s.dq))
         u1, du1, ddu1 = self.link_input(s, ref, z, ddq, dddq)
         eta, deta = s.theta - u1 / k, s.dtheta - du1 / k
         u2 = _eta_regulation(m, self.gains, ref, eta, deta)
         b_d = self.gains.motor_inertia_target
-        if b_d > 0.0:
+        if isinstance(b_d, np.ndarray):  # per joint; an unset target (0) leaves that joint unshaped
+            ratio = np.divide(B, b_d, out=np.ones(len(b_d)), where=b_d > 0.0)
+            u2 = ratio * u2 + (1.0 - ratio) * k * (eta - s.q)
+        elif b_d > 0.0:
             u2 = (B / b_d) * u2 + (1.0 - B / b_d) * k * (eta - s.q)
         return u2 + u1 + (B / k) * ddu1
 
@@ -164,13 +211,13 @@ class DecoupledDamper(_Transformed):
 
     @property
     def n_states(self):
-        return 2 if self.gains.virtual_mass > 0.0 else 1
+        return 2 if np.all(np.asarray(self.gains.virtual_mass) > 0.0) else 1
 
     def _damper(self, s, z):
         """(x', x'') of the virtual damper."""
         g = self.gains
         k_v, d_v, m_v = g.decoupling_stiffness, g.link_damping, g.virtual_mass
-        if m_v > 0.0:
+        if self.n_states == 2:
             x, dx = z
             return dx, (k_v * (s.q - x) - d_v * dx) / m_v
         dx = k_v * (s.q - z[0]) / d_v
@@ -186,10 +233,12 @@ class DecoupledDamper(_Transformed):
         return (dx, ddx) if self.n_states == 2 else (dx,)
 
     def state_matrices(self):
+        """(A, b) of z' = A z + b q; with per-joint gains (arrays) the joints' systems stack on a last axis."""
         g = self.gains
         k_v, d_v, m_v = g.decoupling_stiffness, g.link_damping, g.virtual_mass
-        if m_v > 0.0:
-            return np.array([[0.0, 1.0], [-k_v / m_v, -d_v / m_v]]), np.array([0.0, k_v / m_v])
+        if self.n_states == 2:
+            zero = 0.0 * k_v
+            return np.array([[zero, zero + 1.0], [-k_v / m_v, -d_v / m_v]]), np.array([zero, k_v / m_v])
         return np.array([[-k_v / d_v]]), np.array([k_v / d_v])
 
     def initial_state(self, s):
@@ -240,6 +289,11 @@ def zoh(a: np.ndarray, b: np.ndarray, dt: float) -> tuple:
     c, s = cos(w dt), sin(w dt)/w for d = -w^2 < 0 and cosh(w dt), sinh(w dt)/w for d = w^2 >= 0
     (s -> dt as w -> 0). A fixed cost per call whatever ``dt``; A must be invertible.
     """
+    if a.ndim == 3:  # one system per joint on the last axis: the closed form joint by joint
+        per_joint = [zoh(a[:, :, j], b[:, j], dt) for j in range(a.shape[2])]
+        k = a.shape[0]
+        return ([[np.array([ad[r][c] for ad, _ in per_joint]) for c in range(k)] for r in range(k)],
+                [np.array([bd[r] for _, bd in per_joint]) for r in range(k)])
     n = a.shape[0]
     if n == 1:
         rate = float(a[0, 0])
@@ -287,6 +341,10 @@ class LawRunner:
         z1 = list(z0)
         z1[0] += 1e-3
         slope = (self.law.output(s, ref, tuple(z1)) - t0) / 1e-3
+        if isinstance(slope, np.ndarray):  # joint by joint: each torque is affine in its own state
+            usable = np.isfinite(slope) & (np.abs(slope) >= 1e-9)
+            z0[0] = z0[0] + np.where(usable, (tau - t0) / np.where(usable, slope, 1.0), 0.0)
+            return tuple(z0)
         if not math.isfinite(slope) or abs(slope) < 1e-9:
             return tuple(z0)
         z0[0] += (tau - t0) / slope

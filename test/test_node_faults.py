@@ -31,7 +31,8 @@ SLEW = LIMITS["knee_motor"].torque_rate
 
 
 def _safe_commands(ros, period=PERIOD):
-    commands = [Command(seconds(m.header.stamp), dict(zip(m.name, m.effort))) for m in ros.probe.efforts]
+    ns = [m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec for m in ros.probe.efforts]
+    commands = [Command((k - ns[0]) * 1e-9, dict(zip(m.name, m.effort))) for k, m in zip(ns, ros.probe.efforts)]
     violations = check_commands(commands, LIMITS, period)
     assert not violations, violations[:5]
 

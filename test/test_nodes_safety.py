@@ -144,7 +144,7 @@ def test_lifecycle_inactive_is_silent_and_deactivate_ramps_to_zero(ros):
 
     assert ctrl.trigger_activate().name == "SUCCESS"
     assert ros.spin_until(lambda: sim.plant.ticks >= 30, 30.0)
-    answered = round(ctrl.stamps.last * 1e9)  # ns stamp of the last state answered while active
+    answered = ctrl.last_answered_ns  # ns stamp of the last state answered while active
     assert ctrl.trigger_deactivate().name == "SUCCESS"
     ros.spin_for(0.3)
     by_stamp = [(round(seconds(m.header.stamp) * 1e9), m.effort[0]) for m in ros.probe.efforts]
@@ -163,7 +163,7 @@ def test_lifecycle_inactive_is_silent_and_deactivate_ramps_to_zero(ros):
     ticks = sim.plant.ticks
     assert ros.spin_until(lambda: sim.plant.ticks >= ticks + 20, 30.0) and ctrl.bank[0].fault is None
 
-    answered = round(ctrl.stamps.last * 1e9)
+    answered = ctrl.last_answered_ns
     assert ctrl.trigger_shutdown().name == "SUCCESS"  # from active: the same ramp, then silence for good
     ros.spin_for(0.3)
     ramp = [m.effort[0] for m in ros.probe.efforts if round(seconds(m.header.stamp) * 1e9) > answered]

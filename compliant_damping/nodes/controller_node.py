@@ -112,6 +112,7 @@ class ControllerNode(LifecycleNode):
         self.refs = codec.ReferenceSchedule(s.joint_names, [j.limits for j in s.joints])
         self.stamps = codec.StampOrder(s.watchdog_timeout)
         self.sim_time = self.get_parameter("use_sim_time").value
+        self._epoch_ns = self.get_clock().now().nanoseconds  # stamp times count from here (float precision)
         self._watch_clock = self.get_clock() if self.sim_time else self._steady
         self.watchdog = Watchdog(s.watchdog_timeout)
         self.stall = ClockStall(stall_timeout(s.watchdog_timeout))
@@ -181,7 +182,7 @@ class ControllerNode(LifecycleNode):
         for _ in range(math.ceil(safety.MAX_RAMP_DOWN / period) + 1):
             t += period
             taus = [c.ramp_down(t) for c in self.bank]
-            self._publish(taus, _stamp(round(t * 1e9)))
+            self._publish(taus, self._stamp_of(t))
             if not any(taus):
                 break
             time.sleep(period)
@@ -200,7 +201,7 @@ class ControllerNode(LifecycleNode):
         self._count_dropped(info)
         now = self._now()
         stamp = _ns(msg.header.stamp)
-        t = stamp * 1e-9 if stamp else now
+        t = self._time(stamp) if stamp else now
         kind = self.stamps.classify(t, now)
         if kind is codec.Stamp.REPEATED:
             if self._last_command is not None:
@@ -220,7 +221,7 @@ class ControllerNode(LifecycleNode):
         refs = self.refs.at(t)
         taus = [c.step(s, self._reference(j, s, refs[j]), t, dt)
                 for j, (c, s) in enumerate(zip(self.bank, samples))]
-        self._publish(taus, _stamp(round(t * 1e9)) if not stamp else msg.header.stamp)
+        self._publish(taus, msg.header.stamp if stamp else self._stamp_of(t))
         self.watchdog.fresh(self._watch_now())
         self._feed_watchdog(self.setup.watchdog_timeout)
         self._log_faults()
@@ -255,7 +256,7 @@ class ControllerNode(LifecycleNode):
         return self._hold[j]
 
     def _on_reference(self, msg):
-        rejection = self.refs.add(_ns(msg.header.stamp) * 1e-9, msg.name, msg.position, msg.velocity)
+        rejection = self.refs.add(self._time(_ns(msg.header.stamp)), msg.name, msg.position, msg.velocity)
         if rejection is not None:
             self._rejected("link reference", rejection)
 
@@ -274,7 +275,7 @@ class ControllerNode(LifecycleNode):
             for c in self.bank:
                 c.trip(fault)
             t = max(self._now(), self._newest_command_time() + self.ticks.period)
-            self._publish([c.ramp_down(t) for c in self.bank], _stamp(round(t * 1e9)))
+            self._publish([c.ramp_down(t) for c in self.bank], self._stamp_of(t))
             self._log_faults()
 
     def _on_supervise(self):
@@ -404,9 +405,23 @@ class ControllerNode(LifecycleNode):
         self.setup = setup
 
     # --- helpers ---------------------------------------------------------------------------
+    def _time(self, ns: int) -> float:
+        """Stamp time (s) of a stamp or clock reading ``ns``, counted from the configure time, so a
+        float resolves it to far below a microsecond (seconds since 1970 resolve only 0.24 us)."""
+        return (ns - self._epoch_ns) * 1e-9
+
+    def _stamp_of(self, t: float) -> Time:
+        """The message stamp of stamp time ``t`` (s)."""
+        return _stamp(self._epoch_ns + round(t * 1e9))
+
+    @property
+    def last_answered_ns(self) -> int | None:
+        """Stamp (ns) of the last joint state answered, or None."""
+        return None if self.stamps.last is None else self._epoch_ns + round(self.stamps.last * 1e9)
+
     def _now(self) -> float:
-        """Node clock (s): sim time with use_sim_time, else system time."""
-        return self.get_clock().now().nanoseconds * 1e-9
+        """Node clock as stamp time (s): sim time with use_sim_time, else system time."""
+        return self._time(self.get_clock().now().nanoseconds)
 
     def _watch_now(self) -> float:
         """Watchdog clock (s): sim time with use_sim_time, else the steady clock."""
