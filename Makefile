@@ -48,6 +48,7 @@ bench: $(VENV)/.installed
 	$(PY) benchmarks/simulator_speed.py
 	$(PY) benchmarks/law_tick_cost.py
 	$(PY) benchmarks/node_latency.py
+	$(PY) benchmarks/link_dynamics_cost.py
 
 clean:
 	rm -rf $(VENV) $(VENV_JAZZY) results .pytest_cache
