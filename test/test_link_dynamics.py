@@ -10,6 +10,8 @@ ABA derivatives under test).
 """
 import math
 import re
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -271,6 +273,10 @@ def test_robot_description_errors_name_the_item():
         ("<sdf version='1.7'/>", ARM_JOINTS, "robot_description", "the root element is <sdf>"),
         (re.sub(r'<link name="forearm">.*?</link>', '<link name="forearm"/>', text, flags=re.S), ARM_JOINTS,
          "forearm", "link moved by joint elbow has no inertia"),
+        (text.replace('<origin xyz="0.2 0 0" rpy="0 0 0"/>', '<origin xyz="0 0 0" rpy="0 0 0"/>')
+         .replace('ixx="0.0003125" ixy="0" ixz="0" iyy="0.01015625" iyz="0" izz="0.01015625"',
+                  'ixx="0" ixy="0" ixz="0" iyy="0" iyz="0" izz="0"'), ARM_JOINTS, "robot_description",
+         "singular at q = 0"),  # a point mass on the elbow axis: nothing resists the elbow
         (text.replace('<child link="forearm"/>', '<child link="hand"/>'), ARM_JOINTS, "elbow",
          "joint without a declared child link"),
         (text.replace("<limit lower=\"-3.14\" upper=\"3.14\" effort=\"40.0\" velocity=\"8.0\"/>", "", 1),
@@ -284,3 +290,35 @@ def test_robot_description_errors_name_the_item():
         assert info.value.key == key and reason in info.value.reason, (key, reason, str(info.value))
     with pytest.raises(RobotModelError, match="nowhere.urdf: cannot read the URDF"):
         UrdfChain.from_file(Path("/nonexistent/nowhere.urdf"), ARM_JOINTS)
+
+
+WITHOUT_PINOCCHIO = """
+import sys
+
+class NoPinocchio:
+    def find_spec(self, name, path=None, target=None):
+        if name.split(".")[0] == "pinocchio":
+            raise ImportError(f"blocked for this test: {name}")
+        return None
+
+sys.meta_path.insert(0, NoPinocchio())
+from compliant_damping.dynamics import IndependentLinks, UrdfChain, bundled_urdf
+print(IndependentLinks([0.25], [2.0], [0.0]).forward([0.5], [0.0], [1.0])[0])
+try:
+    UrdfChain.from_file(bundled_urdf("pendulum.urdf"), ["knee"])
+except ImportError as err:
+    print(err)
+print("pinocchio" in sys.modules)
+"""
+
+
+def test_independent_links_need_no_pinocchio():
+    """With Pinocchio unimportable, IndependentLinks runs ((1 - 2 sin 0.5) / 0.25 by hand) and
+    building a UrdfChain says what to install."""
+    out = subprocess.run([sys.executable, "-c", WITHOUT_PINOCCHIO], capture_output=True, text=True, timeout=60,
+                         cwd=Path(__file__).resolve().parent.parent)
+    assert out.returncode == 0, out.stderr
+    ddq, message, loaded = out.stdout.strip().splitlines()
+    assert float(ddq) == pytest.approx((1.0 - 2.0 * math.sin(0.5)) / 0.25, rel=1e-15)
+    assert "UrdfChain needs Pinocchio: pip install pin==4.1.0" in message
+    assert loaded == "False"
