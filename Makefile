@@ -48,6 +48,7 @@ bench: $(VENV)/.installed
 	$(PY) benchmarks/simulator_speed.py
 	$(PY) benchmarks/law_tick_cost.py
 	$(PY) benchmarks/node_latency.py
+	$(PY) benchmarks/link_dynamics_cost.py
 
 # Not part of bench or test: ten minutes of both nodes at 1 kHz (SOAK_SECONDS to shorten).
 SOAK_SECONDS ?= 600

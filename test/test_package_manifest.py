@@ -24,6 +24,7 @@ KEYS = {
     "numpy": ("python3-numpy", "numpy"), "scipy": ("python3-scipy", "scipy"), "yaml": ("python3-yaml", "PyYAML"),
     "matplotlib": ("python3-matplotlib", "matplotlib"), "tqdm": ("python3-tqdm", "tqdm"),
     "numba": ("python3-numba", "numba"), "rosbags": ("python3-rosbags-pip", "rosbags"),
+    "pinocchio": ("pinocchio", "pin"),
     "pytest": ("python3-pytest", "pytest"), "hypothesis": ("python3-hypothesis", "hypothesis"),
     "control": ("python-control-pip", "control"), "setuptools": ("python3-setuptools", "setuptools"),
 }
