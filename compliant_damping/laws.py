@@ -145,7 +145,7 @@ class Law:
         self.torque_sensor = torque_sensor  # take the spring torque from the reading's tau_s
 
     def output(self, s: JointSample, ref, z) -> float:
-        return 0.0
+        return 0.0 * s.q  # zero, per joint on a chain
 
     def state_rate(self, s: JointSample, ref, z) -> tuple:
         return ()
@@ -264,7 +264,10 @@ def check_gains(name: str, gains: Gains) -> None:
     """Raise ValueError naming the gain when ``gains`` cannot run law ``name``."""
     if name not in _LAWS:
         raise ValueError(f"law: unknown law {name!r}; choose one of {', '.join(LAW_NAMES)}")
-    if name in ("decoupled_damper", "decoupled_impedance") and gains.link_damping <= 0.0:
+    mass = np.asarray(gains.virtual_mass) > 0.0
+    if mass.ndim and mass.any() and not mass.all():
+        raise ValueError("virtual_mass: on a chain every joint's damper has a virtual mass, or none has")
+    if name in ("decoupled_damper", "decoupled_impedance") and np.any(np.asarray(gains.link_damping) <= 0.0):
         raise ValueError(f"link_damping: {name} needs a positive damper (got {gains.link_damping})")
 
 
@@ -339,7 +342,7 @@ class LawRunner:
         z0 = list(self.z)
         t0 = self.law.output(s, ref, tuple(z0))
         z1 = list(z0)
-        z1[0] += 1e-3
+        z1[0] = z1[0] + 1e-3  # a new value: += would change an array state in place
         slope = (self.law.output(s, ref, tuple(z1)) - t0) / 1e-3
         if isinstance(slope, np.ndarray):  # joint by joint: each torque is affine in its own state
             usable = np.isfinite(slope) & (np.abs(slope) >= 1e-9)
