@@ -55,7 +55,8 @@ class PlaneContact:
     """Push-only spring-damper between frame ``frame`` and the plane ``normal . p = height`` (m).
 
     The frame penetrates when ``normal . p < height``; the normal force
-    ``f = max(stiffness d - damping d', 0)`` with depth ``d = height - normal . p`` only pushes.
+    ``f = max(stiffness d + damping d', 0)`` with depth ``d = height - normal . p`` only pushes
+    (the damper resists the penetration speed d' = -normal . v, as the end stops' does).
     """
 
     frame: str
@@ -75,7 +76,7 @@ class PlaneContact:
         depth, row = self.depth_and_jacobian(links, q)
         if depth <= 0.0:
             return np.zeros(len(q))
-        force = max(self.stiffness * depth + self.damping * float(row @ dq), 0.0)  # d' = -n.J q'
+        force = max(self.stiffness * depth - self.damping * float(row @ dq), 0.0)  # d' = -n.J q'
         return row * force
 
     def energy(self, links, q) -> float:

@@ -246,4 +246,4 @@ class UrdfChain(LinkDynamics):
         self._load(q)
         pin = self._pin
         jac = pin.computeFrameJacobian(self._model, self._data, self._q, fid, pin.LOCAL_WORLD_ALIGNED)
-        return jac[:, self._perm]
+        return np.asarray(jac).reshape(6, -1)[:, self._perm]  # one joint: eigenpy gives a flat (6,)
