@@ -8,11 +8,13 @@ from __future__ import annotations
 import math
 from dataclasses import fields
 
+import numpy as np
+
 from .laws import Gains, LawRunner, NominalModel, check_gains, make_law
 from .safety import Fault, FaultCode, Limits, SafetyFilter, motor_accel_bound
 from .sample import JointSample
 
-__all__ = ["JointController", "blend_gains", "bank"]
+__all__ = ["JointController", "RobotController", "blend_gains", "bank", "stack_gains"]
 
 
 def blend_gains(old: Gains, new: Gains, w: float, motor_inertia: float) -> Gains:
@@ -157,3 +159,93 @@ def bank(setup) -> list:
     sensor = setup.spring_torque_source == "effort"
     return [JointController(setup.law, j.model, j.gains, j.limits, setup.safe_mode, sensor, 1.0 / setup.control_rate)
             for j in setup.joints]
+
+
+class RobotController:
+    """One law for a robot with coupled links, a safety filter per joint; nothing else sends torque.
+
+    The law runs on all joints at once (laws.ChainNominal, per-joint gains stacked as arrays);
+    each joint's command passes its own safety.SafetyFilter. A fault on one joint puts every
+    joint in safe mode: the others trip with ``FaultCode.OTHER_JOINT`` naming it, and the law
+    is not run on a tick whose readings violate a limit. Bumpless start: the law's states are
+    chosen so that its first torques equal the last commands.
+
+    Parameters
+    ----------
+    law : str
+        One of laws.LAW_NAMES.
+    model : laws.ChainNominal
+    gains : sequence of Gains
+        Per joint.
+    limits : sequence of Limits
+        Per joint.
+    joint_names : sequence of str
+        For the fault reasons.
+    safe_mode, torque_sensor, period
+        As for :class:`JointController`.
+    """
+
+    def __init__(self, law: str, model, gains, limits, joint_names, safe_mode: str = "zero_torque",
+                 torque_sensor: bool = False, period: float = 1e-3):
+        for g in gains:
+            check_gains(law, g)
+        self.law_name, self.model, self.joint_names = law, model, list(joint_names)
+        self.gains = stack_gains(gains)
+        check_gains(law, self.gains)  # the damper order must agree across the joints
+        self.torque_sensor = torque_sensor
+        self.filters = [SafetyFilter(lim, safe_mode, period, motor_accel_bound(lim, b, k))
+                        for lim, b, k in zip(limits, model.motor_inertia, model.spring_stiffness)]
+        self._runner: LawRunner | None = None
+
+    @property
+    def faults(self) -> list:
+        """Fault per joint (None where none)."""
+        return [f.fault for f in self.filters]
+
+    def step(self, readings, ref, t: float, dt: float) -> np.ndarray:
+        """Motor torques (N m) for the per-joint readings at stamp time ``t``; ``ref`` = (q_d, q_d', q_d'') arrays."""
+        healthy = (all(f.fault is None and f.check(s) is None for f, s in zip(self.filters, readings))
+                   and all(np.all(np.isfinite(r)) for r in ref))
+        tau = None
+        if healthy:
+            s = JointSample(*(np.array(column, dtype=float) for column in zip(*readings)))
+            lower = np.array([f.limits.position_lower for f in self.filters])
+            upper = np.array([f.limits.position_upper for f in self.filters])
+            ref = (np.clip(ref[0], lower, upper), ref[1], ref[2])  # as JointController: into the position limits
+            if self._runner is None:
+                law = make_law(self.law_name, self.model, self.gains, self.torque_sensor)
+                self._runner = LawRunner(law, s, ref, previous_torque=np.array([f.last_torque for f in self.filters]))
+            tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)
+        elif self.filters[0].fault is None and not all(np.all(np.isfinite(r)) for r in ref):
+            self.filters[0].trip(Fault(FaultCode.NON_FINITE_REFERENCE, "non-finite reference"))
+        out = np.array([f.filter(s, None if tau is None else float(tau[j]), t)
+                        for j, (f, s) in enumerate(zip(self.filters, readings))])
+        self._spread_faults()
+        return out
+
+    def _spread_faults(self) -> None:
+        first = next(((name, f.fault) for name, f in zip(self.joint_names, self.filters) if f.fault is not None), None)
+        if first is None:
+            return
+        name, fault = first
+        for f in self.filters:
+            f.trip(Fault(FaultCode.OTHER_JOINT, f"{name}: {fault}"))
+
+    def trip(self, fault: Fault) -> None:
+        """Every joint to safe mode with ``fault``."""
+        for f in self.filters:
+            f.trip(fault)
+
+    def reset(self) -> list:
+        """Clear the faults if every joint's last reading is within limits; returns the faults that stay."""
+        staying = [b for b in (f.blocking() for f in self.filters) if b is not None]
+        if not staying:
+            for f in self.filters:
+                f.reset()
+            self._runner = None
+        return staying
+
+
+def stack_gains(gains) -> Gains:
+    """Per-joint Gains as one Gains of arrays (joint order)."""
+    return Gains(**{f.name: np.array([getattr(g, f.name) for g in gains], dtype=float) for f in fields(Gains)})

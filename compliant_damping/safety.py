@@ -54,6 +54,7 @@ class FaultCode(enum.Enum):
     CLOCK_STOPPED = "clock_stopped"
     STOP_REQUESTED = "stop_requested"
     COMMAND_CONFLICT = "command_conflict"
+    OTHER_JOINT = "other_joint"
 
 
 @dataclass(frozen=True)
@@ -259,11 +260,15 @@ class SafetyFilter:
         self.trusted = False
         return self.limit(0.0, t)
 
-    def reset(self) -> Fault | None:
-        """Clear the fault if the last reading is within limits; returns the fault that stays, or None."""
+    def blocking(self) -> Fault | None:
+        """What keeps a reset from clearing the fault: no reading yet, or a last reading beyond a limit."""
         if self._last_sample is None:
             return Fault(FaultCode.NO_READING, "no joint state received yet")
-        fault = self.check(self._last_sample)
+        return self.check(self._last_sample)
+
+    def reset(self) -> Fault | None:
+        """Clear the fault if the last reading is within limits; returns the fault that stays, or None."""
+        fault = self.blocking()
         if fault is None:
             self.fault = None
         return fault
