@@ -209,9 +209,9 @@ class DecoupledDamper(_Transformed):
 
     name = "decoupled_damper"
 
-    @property
-    def n_states(self):
-        return 2 if np.all(np.asarray(self.gains.virtual_mass) > 0.0) else 1
+    def __init__(self, model, gains: Gains, torque_sensor: bool = False):
+        super().__init__(model, gains, torque_sensor)
+        self.n_states = 2 if np.all(np.asarray(gains.virtual_mass) > 0.0) else 1  # fixed per law instance
 
     def _damper(self, s, z):
         """(x', x'') of the virtual damper."""
