@@ -47,6 +47,7 @@ test-jazzy: $(VENV_JAZZY)/.installed
 bench: $(VENV)/.installed
 	$(PY) benchmarks/simulator_speed.py
 	$(PY) benchmarks/law_tick_cost.py
+	$(PY) benchmarks/robot_speed.py
 	$(PY) benchmarks/node_latency.py
 	$(PY) benchmarks/link_dynamics_cost.py
 

@@ -1,0 +1,87 @@
+"""Speed of the multi-joint path, measured side by side in one run (not a test).
+
+1. Law cost per tick (decoupled_damper, LawRunner.step: output with ABA and its derivatives,
+   closed-form ZOH of the damper states) for the bench knee as one joint (floats), the bundled
+   3-joint compliant leg and a generated 7-joint chain (Pinocchio), in microseconds and as ratios.
+2. Real-time factor of the coupled closed loop (robot_sim.simulate_robot: RobotController +
+   ElasticChain with RK4) for the 3-joint leg at 1 kHz control / 10 kHz plant, against the
+   bench simulator (simulate.simulate) of one joint.
+
+    .venv/bin/python benchmarks/robot_speed.py
+"""
+from __future__ import annotations
+
+import dataclasses
+import statistics
+import time
+
+import numpy as np
+
+from compliant_damping import config, controller, scenarios, simulate
+from compliant_damping.controller import RobotController, stack_gains
+from compliant_damping.dynamics import UrdfChain, bundled_urdf
+from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements
+from compliant_damping.laws import ChainNominal, LawRunner, make_law
+from compliant_damping.references import Constant
+from compliant_damping.robot_sim import simulate_robot
+from compliant_damping.sample import JointSample
+from link_dynamics_cost import seven_joint_urdf
+
+TICKS, ROUNDS = 2000, 5
+CTRL, SIM = config.load(config.bundled())
+KNEE = CTRL.joints[0]
+
+
+def chain(links):
+    n = links.n
+    nominal = ChainNominal(links, np.full(n, KNEE.model.motor_inertia), np.full(n, KNEE.model.spring_stiffness))
+    return make_law("decoupled_damper", nominal, stack_gains([KNEE.gains] * n)), n
+
+
+def per_tick(law, sample, ref) -> float:
+    runner = LawRunner(law, sample, ref)
+    start = time.perf_counter()
+    for _ in range(TICKS):
+        runner.step(sample, ref, 1e-3)
+    return (time.perf_counter() - start) / TICKS
+
+
+def main() -> None:
+    bench = make_law("decoupled_damper", KNEE.model, KNEE.gains)
+    cases = {"1 joint (bench, floats)": (bench, JointSample(0.1, 0.2, 0.12, 0.1), (0.0, 0.0, 0.0))}
+    for label, links in [("3 joints (leg, Pinocchio)", UrdfChain.from_file(bundled_urdf("compliant_leg.urdf"),
+                                                                           ["hip_pitch", "knee_pitch", "ankle_pitch"])),
+                         ("7 joints (chain, Pinocchio)", UrdfChain(seven_joint_urdf(), [f"j{i}" for i in range(7)]))]:
+        law, n = chain(links)
+        cases[label] = (law, JointSample(np.full(n, 0.1), np.full(n, 0.2), np.full(n, 0.12), np.full(n, 0.1)),
+                        (np.zeros(n), np.zeros(n), np.zeros(n)))
+    times = {k: [] for k in cases}
+    for _ in range(ROUNDS):
+        for k, (law, s, ref) in cases.items():
+            times[k].append(per_tick(law, s, ref))
+    base = statistics.median(times["1 joint (bench, floats)"])
+    print("law tick, decoupled_damper (median of interleaved rounds):")
+    for k, v in times.items():
+        m = statistics.median(v)
+        print(f"  {k:28s} {m * 1e6:8.1f} us per tick   {m / base:6.1f}x the bench joint")
+
+    leg = UrdfChain.from_file(bundled_urdf("compliant_leg.urdf"), ["hip_pitch", "knee_pitch", "ankle_pitch"])
+    plant = ElasticChain(leg, ElasticElements.from_joint_params([SIM.joints[0].plant] * 3))
+    nominal = ChainNominal(leg, np.full(3, KNEE.model.motor_inertia), np.full(3, KNEE.model.spring_stiffness))
+    q0 = np.array([0.2, -0.3, 0.1])
+    x0 = np.stack([q0, np.zeros(3), q0 + leg.gravity(q0) / KNEE.model.spring_stiffness, np.zeros(3)], axis=1)
+    duration = 1.0
+    robot = RobotController("decoupled_damper", nominal, [KNEE.gains] * 3, [dataclasses.replace(KNEE.limits,
+                            position_lower=-2.0, position_upper=2.0)] * 3, ["h", "k", "a"], period=1e-3)
+    run = simulate_robot(plant, robot, [Constant(float(q)) for q in q0], x0, duration, 1e-3, 10)
+    ctrl = dataclasses.replace(CTRL, law="decoupled_damper")
+    simulate.simulate(SIM.joints, controller.bank(ctrl), scenarios.make("free_oscillation", SIM.joints), 0.1)  # warm-up
+    one = simulate.simulate(SIM.joints, controller.bank(ctrl), scenarios.make("free_oscillation", SIM.joints),
+                            duration, control_dt=1e-3, substeps=10)
+    print(f"closed loop, 1 kHz control / 10 kHz plant, {duration} s: 3-joint leg real-time factor "
+          f"{duration / run.wall_time:.2f}x; bench joint {duration / one.wall_time:.1f}x "
+          f"(ratio {run.wall_time / one.wall_time:.0f}x slower per simulated second)")
+
+
+if __name__ == "__main__":
+    main()
