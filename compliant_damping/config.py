@@ -1,5 +1,6 @@
-"""Parameter files: one ROS 2 parameter YAML for the controller node, the simulated
-joint node and the command-line tool.
+"""Parameter validation: one ROS 2 parameter YAML for the controller node, the simulated
+joint node and the command-line tool (reading, sections and layering: parameter_files.py, whose
+names this module passes on).
 
 Layout (node names are the sections; keys are ROS parameter names, dotted when nested)::
 
@@ -37,12 +38,11 @@ from __future__ import annotations
 import difflib
 import math
 from dataclasses import MISSING, dataclass, fields
-from pathlib import Path
-
-import yaml
 
 from .laws import LAW_NAMES, Gains, NominalModel, check_gains
 from .model import JointParams
+from .parameter_files import (ConfigError, YamlSyntaxError, bundled, flatten, layered_parameters,  # noqa: F401
+                              node_parameters, read, share_dir)
 from .safety import SAFE_MODES, Limits
 from .sensors import SensorParams
 
@@ -51,25 +51,6 @@ SIM_NODE = "simulated_joint"
 # Input of a lock-step simulated joint paced by the scenario player (nodes/scenario_player.py):
 # start the joint with ``-r motor_effort:=<PACED_EFFORT>`` and the player relays the commands.
 PACED_EFFORT = "paced_motor_effort"
-
-
-
-
-class ConfigError(ValueError):
-    """A parameter is missing, unknown, of the wrong type or physically impossible."""
-
-    def __init__(self, key: str, reason: str):
-        super().__init__(f"{key}: {reason}")
-        self.key = key
-        self.reason = reason
-
-
-class YamlSyntaxError(ConfigError):
-    """A parameter file that is not YAML; ``line`` and ``column`` count from 1 (key ``FILE:LINE:COL``)."""
-
-    def __init__(self, path: str, line: int, column: int, reason: str):
-        super().__init__(f"{path}:{line}:{column}", reason)
-        self.path, self.line, self.column = path, line, column
 
 
 class Problems:
@@ -405,72 +386,6 @@ def sim_setup(params: dict) -> SimSetup:
     return _setup(sim_check(params))
 
 
-def flatten(tree: dict, prefix: str = "") -> dict:
-    """Nested YAML mapping to ROS's dotted parameter names."""
-    flat = {}
-    for key, value in tree.items():
-        if isinstance(value, dict):
-            flat.update(flatten(value, f"{prefix}{key}."))
-        else:
-            flat[f"{prefix}{key}"] = value
-    return flat
-
-
-def node_parameters(document: dict, node: str, required: bool = True) -> dict:
-    """Flat parameters for ``node`` from a parsed parameter file (``/**`` and namespaced sections merge).
-
-    ``required=False``: a file without a section for ``node`` gives an empty mapping.
-    """
-    if not isinstance(document, dict):
-        raise ConfigError("<file>", "a parameter file is a mapping of node names to ros__parameters")
-    flat = {}
-    for section, body in document.items():
-        if section == "/**" or str(section).rstrip("/").split("/")[-1] == node:
-            if not isinstance(body, dict) or not isinstance(body.get("ros__parameters"), dict):
-                raise ConfigError(str(section), "expected a 'ros__parameters' mapping")
-            flat.update(flatten(body["ros__parameters"]))
-    if not flat and required:
-        raise ConfigError(node, "no section for this node in the parameter file")
-    return flat
-
-
-def read(path) -> dict:
-    """Parsed parameter file.
-
-    A YAML syntax error raises :class:`YamlSyntaxError` at PyYAML's problem mark (0-based
-    there, 1-based here, as editors count); an unreadable file a ConfigError naming it.
-    """
-    try:
-        text = Path(path).read_text()
-    except OSError as err:
-        raise ConfigError(str(path), f"cannot read the file: {err.strerror}") from None
-    try:
-        return yaml.safe_load(text) or {}
-    except yaml.MarkedYAMLError as err:
-        mark, start = err.problem_mark or err.context_mark, err.context_mark
-        reason = err.problem or err.context
-        if err.context and err.problem and start is not None:
-            reason += f" ({err.context} started at {start.line + 1}:{start.column + 1})"
-        raise YamlSyntaxError(str(path), mark.line + 1, mark.column + 1, reason) from None
-    except yaml.YAMLError as err:
-        raise ConfigError(str(path), f"not valid YAML: {err}") from None
-
-
-def layered_parameters(paths, node: str) -> dict:
-    """Flat parameters for ``node`` from several parameter files in order.
-
-    A later file overrides an earlier one key by key, as ROS 2 does with several
-    ``--params-file`` arguments; files without a section for ``node`` are skipped.
-    """
-    paths = [paths] if isinstance(paths, (str, Path)) else list(paths)
-    flat = {}
-    for path in paths:
-        flat.update(node_parameters(read(path), node, required=False))
-    if not flat:
-        raise ConfigError(node, f"no section for this node in {', '.join(str(p) for p in paths) or 'no file'}")
-    return flat
-
-
 def load(*paths):
     """(ControllerSetup, SimSetup) from one parameter file, or several layered in order."""
     return controller_setup(layered_parameters(paths, CONTROLLER_NODE)), sim_setup(layered_parameters(paths, SIM_NODE))
@@ -479,21 +394,3 @@ def load(*paths):
 def load_controller(*paths) -> ControllerSetup:
     """ControllerSetup alone, for files without a simulated joint (hardware_template.yaml), layered in order."""
     return controller_setup(layered_parameters(paths, CONTROLLER_NODE))
-
-
-def share_dir() -> Path:
-    """Folder holding config/ and launch/: the source tree, or the install's share/compliant_damping."""
-    here = Path(__file__).resolve().parent.parent
-    if (here / "config").is_dir():
-        return here
-    try:
-        from ament_index_python.packages import get_package_share_directory
-        return Path(get_package_share_directory("compliant_damping"))
-    except Exception:  # noqa: BLE001 - no ament index: fall back to the Python prefix
-        import sys
-        return Path(sys.prefix) / "share" / "compliant_damping"
-
-
-def bundled(name: str = "one_joint.yaml") -> Path:
-    """Path of a bundled parameter file in config/."""
-    return share_dir() / "config" / name
