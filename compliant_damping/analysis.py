@@ -40,7 +40,7 @@ from .model import JointParams
 from .sample import JointSample
 
 __all__ = ["AnalysisError", "LinearModel", "Mode", "Analysis", "linearize", "analyze",
-           "link_admittance", "modes_of"]
+           "link_admittance", "modes_of", "central_jacobian"]
 
 
 class AnalysisError(ValueError):
@@ -201,18 +201,25 @@ def linearize(plant: JointParams, law: Law, q_d: float = 0.0, *, coulomb: bool =
     f = _rate_function(plant, law, q_d, coulomb)
     x0 = _equilibrium(f, plant, law, q_d)
     n = len(x0)
-    a = np.empty((n, n))
-    for i in range(n):
-        h = rel_step * max(1.0, abs(x0[i]))
-        dx = np.zeros(n)
-        dx[i] = h
-        a[:, i] = (f(x0 + dx) - f(x0 - dx)) / (2.0 * h)
+    a = central_jacobian(f, x0, rel_step)
     h = rel_step
     b = (f(x0, h) - f(x0, -h)) / (2.0 * h)
     c = np.zeros(n)
     c[0] = 1.0
     names = ("q", "dq", "theta", "dtheta") + tuple(f"z{i}" for i in range(n - 4))
     return LinearModel(a, b, c, x0, names)
+
+
+def central_jacobian(f, x0: np.ndarray, rel_step: float = 1e-6) -> np.ndarray:
+    """df/dx at ``x0`` by central differences, step ``rel_step * max(1, |x_i|)`` per state."""
+    n = len(x0)
+    a = np.empty((n, n))
+    for i in range(n):
+        h = rel_step * max(1.0, abs(x0[i]))
+        dx = np.zeros(n)
+        dx[i] = h
+        a[:, i] = (f(x0 + dx) - f(x0 - dx)) / (2.0 * h)
+    return a
 
 
 def modes_of(lin: LinearModel, tol: float = 1e-9) -> tuple:

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from .analysis import AnalysisError
+from .analysis import AnalysisError, central_jacobian
 from .sample import JointSample
 
 __all__ = ["RobotLinearModel", "RobotMode", "linearize_robot", "robot_modes"]
@@ -91,12 +91,7 @@ def linearize_robot(plant, law, q_d, *, coulomb: bool = False, rel_step: float =
         raise AnalysisError(f"no closed-loop equilibrium found near q_d = {q_d} rad ({sol.message})")
     x0 = sol.x
     size = len(x0)
-    a = np.empty((size, size))
-    for i in range(size):
-        h = rel_step * max(1.0, abs(x0[i]))
-        dx = np.zeros(size)
-        dx[i] = h
-        a[:, i] = (f(x0 + dx) - f(x0 - dx)) / (2.0 * h)
+    a = central_jacobian(f, x0, rel_step)
     b = np.empty((size, n))
     for j in range(n):
         e = np.zeros(n)
