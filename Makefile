@@ -53,7 +53,7 @@ bench: $(VENV)/.installed
 
 # Not part of bench or test: ten minutes of both nodes at 1 kHz (SOAK_SECONDS to shorten).
 SOAK_SECONDS ?= 600
-soak: $(STAMP)
+soak: $(VENV)/.installed
 	$(PY) benchmarks/soak.py --seconds $(SOAK_SECONDS)
 
 clean:
