@@ -41,8 +41,16 @@ from dataclasses import MISSING, dataclass, fields
 
 from .laws import LAW_NAMES, Gains, NominalModel, check_gains
 from .model import JointParams
-from .parameter_files import (ConfigError, YamlSyntaxError, bundled, flatten, layered_parameters,  # noqa: F401
+from .parameter_files import (ConfigError, YamlSyntaxError, bundled, flatten, layered_parameters,
                               node_parameters, read, share_dir)
+
+__all__ = ["CONTROLLER_NODE", "SIM_NODE", "PACED_EFFORT", "ConfigError", "YamlSyntaxError", "Problems", "Checked",
+           "Setting", "ParamSpec", "parameter_specs", "unknown_key", "build", "dataclass_keys",
+           "CONTROLLER_SETTINGS", "CONTROLLER_JOINT_SETTINGS", "CONTROLLER_JOINT_GROUPS", "SIM_SETTINGS",
+           "SIM_JOINT_SETTINGS", "SIM_JOINT_GROUPS", "ControllerJoint", "ControllerSetup", "controller_check",
+           "controller_setup", "SimJoint", "SimSetup", "sim_check", "sim_setup", "load", "load_controller",
+           # reading, sections and layering live in parameter_files; callers find them here too
+           "bundled", "flatten", "layered_parameters", "node_parameters", "read", "share_dir"]
 from .safety import SAFE_MODES, Limits
 from .sensors import SensorParams
 

@@ -23,7 +23,6 @@ behaviour:
 """
 import os
 import subprocess
-import sys
 import time
 from dataclasses import dataclass, field
 

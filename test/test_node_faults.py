@@ -8,7 +8,6 @@ test/command_properties.py (finite, within the torque limit, within the slew lim
 window of stamp time) applied to every command published in a case.
 """
 import math
-import threading
 import time
 
 import pytest
