@@ -37,7 +37,7 @@ from scipy import optimize
 from . import model
 from .laws import Law
 from .model import JointParams
-from .sample import JointSample
+from .sample import JointSample, Reference
 
 __all__ = ["AnalysisError", "LinearModel", "Mode", "Analysis", "linearize", "analyze",
            "link_admittance", "modes_of", "central_jacobian"]
@@ -146,7 +146,7 @@ def _rate_function(plant: JointParams, law: Law, q_d: float, coulomb: bool):
     if not coulomb:
         plant = dataclasses.replace(plant, motor_coulomb=0.0)
     params = model.pack([plant])
-    ref = (q_d, 0.0, 0.0)
+    ref = Reference(q_d)
 
     def f(x, tau_ext=0.0):
         s = JointSample(*(float(v) for v in x[:4]))

@@ -12,7 +12,7 @@ import numpy as np
 
 from .laws import Gains, LawRunner, NominalModel, check_gains, make_law
 from .safety import Fault, FaultCode, Limits, SafetyFilter, motor_accel_bound
-from .sample import JointSample
+from .sample import JointSample, Reference
 
 __all__ = ["JointController", "RobotController", "blend_gains", "bank", "stack_gains"]
 
@@ -82,7 +82,7 @@ class JointController:
             else:
                 lim = self.safety.limits
                 if not lim.position_lower <= q_d <= lim.position_upper:
-                    ref = (min(max(q_d, lim.position_lower), lim.position_upper), dq_d, ddq_d)
+                    ref = Reference(min(max(q_d, lim.position_lower), lim.position_upper), dq_d, ddq_d)
                 gains = self._apply_ramp(t)
                 if self._runner is None:
                     self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s,
@@ -211,7 +211,7 @@ class RobotController:
             s = JointSample(*(np.array(column, dtype=float) for column in zip(*readings)))
             lower = np.array([f.limits.position_lower for f in self.filters])
             upper = np.array([f.limits.position_upper for f in self.filters])
-            ref = (np.clip(ref[0], lower, upper), ref[1], ref[2])  # as JointController: into the position limits
+            ref = Reference(np.clip(ref[0], lower, upper), ref[1], ref[2])  # as JointController: into the limits
             if self._runner is None:
                 law = make_law(self.law_name, self.model, self.gains, self.torque_sensor)
                 self._runner = LawRunner(law, s, ref, previous_torque=np.array([f.last_torque for f in self.filters]))

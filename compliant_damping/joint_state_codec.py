@@ -13,7 +13,7 @@ import enum
 import math
 from dataclasses import dataclass
 
-from .sample import JointSample
+from .sample import JointSample, Reference
 
 __all__ = ["Rejection", "StateDecoder", "encode_states", "pick_values", "ReferenceSchedule", "Stamp",
            "StampOrder", "TickClock"]
@@ -155,7 +155,7 @@ class ReferenceSchedule:
             if inside != p:
                 self.clipped += 1
                 self.last_issue = Rejection(f"{self._names[j]}: reference position {p:+.4g} rad clipped to {inside} rad")
-            refs[j] = (inside, v, 0.0)
+            refs[j] = Reference(inside, v, 0.0)
         return refs or Rejection("no configured joint named")
 
     def at(self, t: float):

@@ -1,12 +1,14 @@
 """Link-side references: desired position with its first two time derivatives.
 
-Each reference is a small immutable object; ``sample(t)`` returns
-``(q_d, q_d', q_d'')`` in rad, rad/s, rad/s^2.
+Each reference is a small immutable object; ``sample(t)`` returns a
+:class:`sample.Reference` ``(q_d, q_d', q_d'')`` in rad, rad/s, rad/s^2.
 """
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+
+from .sample import Reference
 
 
 @dataclass(frozen=True)
@@ -16,7 +18,7 @@ class Constant:
     position: float
 
     def sample(self, t: float):
-        return self.position, 0.0, 0.0
+        return Reference(self.position, 0.0, 0.0)
 
 
 @dataclass(frozen=True)
@@ -28,7 +30,7 @@ class Step:
     at: float = 0.0
 
     def sample(self, t: float):
-        return (self.end if t >= self.at else self.start), 0.0, 0.0
+        return Reference((self.end if t >= self.at else self.start), 0.0, 0.0)
 
 
 @dataclass(frozen=True)
@@ -42,10 +44,10 @@ class Ramp:
 
     def sample(self, t: float):
         if t < self.at:
-            return self.start, 0.0, 0.0
+            return Reference(self.start, 0.0, 0.0)
         if t >= self.at + self.duration:
-            return self.start + self.speed * self.duration, 0.0, 0.0
-        return self.start + self.speed * (t - self.at), self.speed, 0.0
+            return Reference(self.start + self.speed * self.duration, 0.0, 0.0)
+        return Reference(self.start + self.speed * (t - self.at), self.speed, 0.0)
 
 
 def _min_jerk(u: float):
@@ -71,7 +73,7 @@ class SmoothStep:
         u = min(max((t - self.at) / self.duration, 0.0), 1.0)
         span = self.end - self.start
         s, ds, dds, _ = _min_jerk(u)
-        return self.start + span * s, span * ds / self.duration, span * dds / self.duration**2
+        return Reference(self.start + span * s, span * ds / self.duration, span * dds / self.duration**2)
 
 
 @dataclass(frozen=True)
@@ -100,17 +102,17 @@ class Cruise:
         cruise = abs(self.end - self.start) / self.speed - tb  # s at constant speed
         tau = t - self.at
         if tau <= 0.0:
-            return self.start, 0.0, 0.0
+            return Reference(self.start, 0.0, 0.0)
         if tau < tb:
             s, ds, _, area = _min_jerk(tau / tb)
-            return self.start + v * tb * area, v * s, v * ds / tb
+            return Reference(self.start + v * tb * area, v * s, v * ds / tb)
         if tau < tb + cruise:
-            return self.start + v * (tau - 0.5 * tb), v, 0.0
+            return Reference(self.start + v * (tau - 0.5 * tb), v, 0.0)
         if tau < 2.0 * tb + cruise:
             u = (tau - tb - cruise) / tb
             s, ds, _, area = _min_jerk(u)
-            return self.start + v * (cruise + 0.5 * tb + tb * (u - area)), v * (1.0 - s), -v * ds / tb
-        return self.end, 0.0, 0.0
+            return Reference(self.start + v * (cruise + 0.5 * tb + tb * (u - area)), v * (1.0 - s), -v * ds / tb)
+        return Reference(self.end, 0.0, 0.0)
 
 
 @dataclass(frozen=True)
@@ -124,7 +126,7 @@ class Sinusoid:
 
     def sample(self, t: float):
         if t < self.at:
-            return self.offset, 0.0, 0.0
+            return Reference(self.offset, 0.0, 0.0)
         w = 2.0 * math.pi * self.frequency
         s, c = math.sin(w * (t - self.at)), math.cos(w * (t - self.at))
-        return self.offset + self.amplitude * s, self.amplitude * w * c, -self.amplitude * w * w * s
+        return Reference(self.offset + self.amplitude * s, self.amplitude * w * c, -self.amplitude * w * w * s)

@@ -21,7 +21,7 @@ import numpy as np
 from scipy import optimize
 
 from .analysis import AnalysisError, central_jacobian
-from .sample import JointSample
+from .sample import JointSample, Reference
 
 __all__ = ["RobotLinearModel", "RobotMode", "linearize_robot", "robot_modes"]
 
@@ -65,7 +65,7 @@ def _rate_function(plant, law, q_d: np.ndarray, coulomb: bool):
         plant = type(plant)(plant.links, dataclasses.replace(plant.e, motor_coulomb=0.0 * plant.e.motor_coulomb),
                             plant.contacts)
     n = plant.n
-    ref = (q_d, np.zeros(n), np.zeros(n))
+    ref = Reference(q_d, np.zeros(n), np.zeros(n))
 
     def f(x, tau_ext=None):
         state = x[:4 * n].reshape(4, n).T

@@ -11,7 +11,7 @@ import time
 
 import numpy as np
 
-from .sample import JointSample
+from .sample import JointSample, Reference
 from .simulate import SimResult
 
 __all__ = ["simulate_robot"]
@@ -46,7 +46,7 @@ def simulate_robot(plant, controller, references, x0: np.ndarray, duration: floa
         states[i] = x
         tau_s = plant.spring_torque(x)
         readings = [JointSample(*x[j], tau_s[j]) for j in range(n)]
-        ref = tuple(np.array(column) for column in zip(*(r.sample(t) for r in references)))
+        ref = Reference(*(np.array(column) for column in zip(*(r.sample(t) for r in references))))
         tau = controller.step(readings, ref, t, control_dt)
         tau_m[i] = plant.advance(x, tau, external, t, h, substeps)
         tau_s_out[i] = tau_s

@@ -1,4 +1,4 @@
-"""One joint's measurement as every law and the safety filter see it."""
+"""The typed values every law and the safety filter take: a joint's reading and its reference."""
 from __future__ import annotations
 
 import math
@@ -23,3 +23,14 @@ class JointSample(NamedTuple):
         """True when the four kinematic readings are finite (tau_s may be NaN: not measured)."""
         isfinite = math.isfinite  # spelled out: called several times per control tick
         return isfinite(self.q) and isfinite(self.dq) and isfinite(self.theta) and isfinite(self.dtheta)
+
+
+class Reference(NamedTuple):
+    """Desired link motion of one joint (or, with arrays, of every joint of a robot).
+
+    q: position (rad); dq: speed (rad/s); ddq: acceleration (rad/s^2).
+    """
+
+    q: float
+    dq: float = 0.0
+    ddq: float = 0.0

@@ -70,6 +70,7 @@ from std_srvs.srv import Trigger
 
 from .. import config, controller, safety
 from .. import joint_state_codec as codec
+from ..sample import Reference
 from ..watchdog import ClockStall, Watchdog, stall_timeout
 from . import params, spin, startup
 
@@ -252,7 +253,7 @@ class ControllerNode(LifecycleNode):
         if ref is not None:
             return ref
         if self._hold[j] is None:
-            self._hold[j] = (sample.q, 0.0, 0.0)
+            self._hold[j] = Reference(sample.q)
         return self._hold[j]
 
     def _on_reference(self, msg):
