@@ -41,8 +41,13 @@ from lifecycle_msgs.msg import Transition  # noqa: E402
 pytestmark = pytest.mark.ros
 
 CTRL, SIM = config.load(config.bundled())
-PERIOD = 1.0 / CTRL.control_rate           # s, controller tick
-STATE_PERIOD = 1.0 / SIM.state_rate        # s, simulated joint period
+# Both children tick at RATE, not the bundled 1 kHz: three busy Python processes (joint,
+# controller, probe) at 1 kHz oversubscribe a 2-core machine, and a process that is not scheduled
+# for a few hundred ms (seen: 0.7 to 0.9 s) is a test of the machine, not of the safety behaviour.
+# At 200 Hz they idle most of the time; the watchdog timeout (50 ms) stays above two periods.
+RATE = 200.0                               # Hz, control and joint-state rate of these runs
+PERIOD = 1.0 / RATE                        # s, controller tick
+STATE_PERIOD = 1.0 / RATE                  # s, simulated joint period
 PERIOD_NS = round(1e9 * STATE_PERIOD)
 LIMITS = {j.command: j.limits for j in CTRL.joints}
 JOINT, MOTOR = CTRL.joints[0].link_state, CTRL.joints[0].motor_state
@@ -116,8 +121,10 @@ def run(tmp_path, kill: str, lock_step: bool, after: float) -> Record:
     ros_args = ["--ros-args", "-r", f"__ns:={ns}", "-r", f"/clock:={ns}/clock", "-r", f"/diagnostics:={ns}/diagnostics",
                 "--params-file", str(params)]
     flag = "true" if lock_step else "false"
-    commands = {"simulated_joint": demo.module("simulated_joint_node", *ros_args, "-p", f"lock_step:={flag}"),
-                "controller": demo.module("controller_node", *ros_args, "-p", f"use_sim_time:={flag}")}
+    commands = {"simulated_joint": demo.module("simulated_joint_node", *ros_args, "-p", f"lock_step:={flag}",
+                                               "-p", f"state_rate:={RATE}"),
+                "controller": demo.module("controller_node", *ros_args, "-p", f"use_sim_time:={flag}",
+                                          "-p", f"control_rate:={RATE}")}
     procs, rec = {}, Record()
     try:
         for name, cmd in commands.items():
@@ -132,6 +139,10 @@ def run(tmp_path, kill: str, lock_step: bool, after: float) -> Record:
                 assert player.transition(node, step, deadline), f"lifecycle transition {step} failed; logs in {tmp_path}"
             assert player.spin_until(node, lambda: reference.get_subscription_count() > 0, deadline)
             reference.publish(JointState(name=[JOINT], position=[TARGET], velocity=[0.0]))  # stamp 0: at once
+            # the probe must see the loop first: its best-effort reader of joint_states can take
+            # seconds to be matched on a busy machine (seen: none for 3 s, while commands flowed)
+            seen = player.spin_until(node, lambda: len(rec.states) >= 20 and len(rec.commands) >= 20, deadline)
+            assert seen, f"the probe saw {len(rec.states)} states, {len(rec.commands)} commands; logs in {tmp_path}"
             player.spin_until(node, lambda: False, time.monotonic() + BEFORE_KILL)
             assert len(rec.commands) > 100, f"the loop did not run before the kill; logs in {tmp_path}"
             procs[kill].kill()  # SIGKILL by PID
@@ -204,18 +215,24 @@ def test_joint_killed_in_lock_step_controller_reports_a_fault(tmp_path):
 
 
 def test_controller_killed_joint_applies_zero_torque(controller_killed):
+    """No state stamped later than the command timeout (+ 2 periods + TRANSPORT) after the last
+    command applies a torque, and zero torque does come. The first zero is printed; it can come
+    late when the joint's own process is not scheduled for a while (then it publishes no state in
+    between, and the first one after the pause already applies zero: seen once or twice in ten
+    loaded runs, 0.7 to 0.9 s), which is why the check is on every late state, not on the first."""
     rec = controller_killed
     last_command = max(c.stamp for c in rec.commands)
     later = [(s, tau) for s, tau in rec.states if s > last_command]
     zero = [s for s, tau in later if tau == 0.0]
     assert zero, f"the joint never applied zero torque; last states {later[-3:]}"
-    reaction = zero[0] - last_command
     bound = SIM.command_timeout + 2 * STATE_PERIOD
-    print(f"controller killed: zero torque {reaction * 1e3:.1f} ms after the last command's stamp "
-          f"(bound {bound * 1e3:.1f} ms + {TRANSPORT * 1e3:.0f} ms transport)")
-    assert reaction <= bound + TRANSPORT
+    stale = [(s - last_command, tau) for s, tau in later if s > last_command + bound + TRANSPORT and tau != 0.0]
+    print(f"controller killed: zero torque {(zero[0] - last_command) * 1e3:.1f} ms after the last command's stamp "
+          f"(bound {bound * 1e3:.1f} ms + {TRANSPORT * 1e3:.0f} ms transport), {len(later)} states after it")
+    assert not stale, f"a stale command was applied after its timeout: {stale[:3]}"
     assert all(tau == 0.0 for s, tau in later if s >= zero[0])  # and it stays at zero
-    assert max(abs(tau) for s, tau in rec.states if s <= last_command) > 0.1  # it was holding a torque before
+    before = [abs(tau) for s, tau in rec.states if s <= last_command]
+    assert before and max(before) > 0.1, "no state before the kill showed the held torque"  # about 0.6 N m
 
 
 @pytest.mark.parametrize("case", ["joint_killed", "controller_killed"])
