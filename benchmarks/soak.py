@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import argparse
 import os
-import subprocess
 import sys
 import time
 from pathlib import Path
@@ -63,8 +62,7 @@ def soak(seconds: float, sample: float, folder) -> int:
     procs = {}
     late, rejected, faults, memory, command_wall = [], [], set(), [], []
     try:
-        for name, cmd in commands.items():
-            procs[name] = subprocess.Popen(cmd, stdout=open(folder / f"soak.{name}.log", "w"), stderr=subprocess.STDOUT)
+        demo.start(commands, folder / "soak", procs)
         rclpy.init()
         try:
             node = rclpy.create_node("soak_probe", namespace=ns)

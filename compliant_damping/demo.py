@@ -48,6 +48,15 @@ def module(name: str, *args) -> list:
     return [sys.executable, "-m", f"compliant_damping.nodes.{name}", *args]
 
 
+def start(commands: dict, log_prefix: str, procs: dict) -> None:
+    """Start each ``{name: command line}`` as a child process logging to ``<log_prefix>.<name>.log``.
+
+    Fills ``procs`` as it goes, so a caller's ``finally`` can stop what started even if a later start fails.
+    """
+    for name, cmd in commands.items():
+        procs[name] = subprocess.Popen(cmd, stdout=open(f"{log_prefix}.{name}.log", "w"), stderr=subprocess.STDOUT)
+
+
 def stop(proc: subprocess.Popen, timeout: float = 5.0) -> int:
     """SIGINT, then wait (kill after ``timeout`` s); returns the exit code."""
     if proc.poll() is None:
@@ -91,8 +100,7 @@ def run_over_ros(law: str, params_file: Path, out: Path, timeout: float) -> dict
     record = out / f"{law}.npz"
     procs = {}
     try:
-        for name, cmd in commands.items():
-            procs[name] = subprocess.Popen(cmd, stdout=open(out / f"{law}.{name}.log", "w"), stderr=subprocess.STDOUT)
+        start(commands, out / law, procs)
         player = subprocess.run(module("scenario_player", "--config", str(params_file), "--scenario", SCENARIO,
                                        "--timeout", str(timeout), "--out", str(record), *ros_args),
                                 stdout=open(out / f"{law}.player.log", "w"), stderr=subprocess.STDOUT,

@@ -28,7 +28,6 @@ Each run takes a few seconds of wall time (2 s of sim time); the player gives up
 import argparse
 import dataclasses
 import os
-import subprocess
 import sys
 import time
 
@@ -70,9 +69,7 @@ def run_over_ros(law: str, folder) -> simulate.SimResult:
     }
     procs = {}
     try:
-        for name, cmd in commands.items():
-            procs[name] = subprocess.Popen(cmd, stdout=open(folder / f"{law}.{name}.log", "w"),
-                                           stderr=subprocess.STDOUT)  # environment inherited
+        demo.start(commands, folder / law, procs)  # environment inherited
         rclpy.init()
         try:
             node = rclpy.create_node("cross_process_player", namespace=ns)

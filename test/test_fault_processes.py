@@ -22,7 +22,6 @@ behaviour:
    limit per stamp time (command_properties.check_commands).
 """
 import os
-import subprocess
 import time
 from dataclasses import dataclass, field
 
@@ -127,8 +126,7 @@ def run(tmp_path, kill: str, lock_step: bool, after: float) -> Record:
                                           "-p", f"control_rate:={RATE}")}
     procs, rec = {}, Record()
     try:
-        for name, cmd in commands.items():
-            procs[name] = subprocess.Popen(cmd, stdout=open(tmp_path / f"{name}.log", "w"), stderr=subprocess.STDOUT)
+        demo.start(commands, tmp_path / "run", procs)
         rclpy.init()
         try:
             node = rclpy.create_node("fault_probe", namespace=ns)
