@@ -195,6 +195,8 @@ class RobotController:
         self.torque_sensor = torque_sensor
         self.filters = [SafetyFilter(lim, safe_mode, period, motor_accel_bound(lim, b, k))
                         for lim, b, k in zip(limits, model.motor_inertia, model.spring_stiffness)]
+        self._lower = np.array([lim.position_lower for lim in limits])  # reference clipping, rad
+        self._upper = np.array([lim.position_upper for lim in limits])
         self._runner: LawRunner | None = None
 
     @property
@@ -209,9 +211,7 @@ class RobotController:
         tau = None
         if healthy:
             s = JointSample(*(np.array(column, dtype=float) for column in zip(*readings)))
-            lower = np.array([f.limits.position_lower for f in self.filters])
-            upper = np.array([f.limits.position_upper for f in self.filters])
-            ref = Reference(np.clip(ref[0], lower, upper), ref[1], ref[2])  # as JointController: into the limits
+            ref = Reference(np.clip(ref[0], self._lower, self._upper), ref[1], ref[2])  # as JointController
             if self._runner is None:
                 law = make_law(self.law_name, self.model, self.gains, self.torque_sensor)
                 self._runner = LawRunner(law, s, ref, previous_torque=np.array([f.last_torque for f in self.filters]))

@@ -23,6 +23,7 @@ from scipy.integrate import solve_ivp
 pytest.importorskip("pinocchio", reason="URDF chains need Pinocchio (the pin package)")
 
 from compliant_damping import config  # noqa: E402
+from compliant_damping.controller import stack_gains  # noqa: E402
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements  # noqa: E402
 from compliant_damping.dynamics.links import IndependentLinks  # noqa: E402
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf  # noqa: E402
@@ -32,12 +33,6 @@ from compliant_damping.sample import JointSample  # noqa: E402
 CTRL, SIM = config.load(config.bundled())
 KNEE = CTRL.joints[0]
 RNG = np.random.default_rng(7)
-
-
-def _stack(gains_per_joint):
-    """Per-joint Gains as one Gains of arrays."""
-    return Gains(**{f.name: np.array([getattr(g, f.name) for g in gains_per_joint])
-                    for f in dataclasses.fields(Gains)})
 
 
 def _chain_nominal(links, n=1):
@@ -62,7 +57,7 @@ def test_one_joint_chain_gives_the_bench_torques(law, links):
              IndependentLinks([model.link_inertia], [model.gravity_torque], [model.gravity_offset]))
     gains = dataclasses.replace(KNEE.gains, link_stiffness=40.0, motor_inertia_target=0.1)
     bench = make_law(law, model, gains)
-    vector = make_law(law, _chain_nominal(chain), _stack([gains]))
+    vector = make_law(law, _chain_nominal(chain), stack_gains([gains]))
     for _ in range(20):
         s = JointSample(*RNG.uniform(-0.5, 0.5, 4))
         ref = tuple(RNG.uniform(-0.3, 0.3, 3))
@@ -82,17 +77,11 @@ def test_one_joint_chain_gives_the_bench_torques(law, links):
 def _arm():
     """The two-link test arm with gravity, its elastic elements and gains (invented numbers)."""
     links = UrdfChain.from_file(bundled_urdf("two_link_arm.urdf"), ["shoulder", "elbow"])
-    n = links.n
     B, K = np.array([0.2, 0.1]), np.array([400.0, 250.0])
-    zero = np.zeros(n)
-    elements = ElasticElements(motor_inertia=B, spring_stiffness=K, spring_cubic=zero, spring_damping=zero,
-                               link_viscous=zero, motor_viscous=zero, motor_coulomb=zero,
-                               coulomb_speed=np.ones(n), stop_lower=np.full(n, -np.inf),
-                               stop_upper=np.full(n, np.inf), stop_stiffness=zero, stop_damping=zero,
-                               driver_torque_limit=np.full(n, np.inf))
+    elements = ElasticElements.lossless(B, K)
     gains = [Gains(motor_stiffness=300.0, motor_damping=8.0, link_damping=4.0, decoupling_stiffness=150.0),
              Gains(motor_stiffness=200.0, motor_damping=5.0, link_damping=2.0, decoupling_stiffness=100.0)]
-    return links, elements, _stack(gains), ChainNominal(links, B, K)
+    return links, elements, stack_gains(gains), ChainNominal(links, B, K)
 
 
 @pytest.mark.parametrize("law", ["link_damping", "decoupled_damper"])

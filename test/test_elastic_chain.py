@@ -49,12 +49,7 @@ def test_pendulum_urdf_plant_equals_the_bench_plant():
 
 def _leg(**changes):
     links = UrdfChain.from_file(bundled_urdf("compliant_leg.urdf"), LEG_JOINTS)
-    n = links.n
-    zero, inf = np.zeros(n), np.full(n, np.inf)
-    elements = ElasticElements(motor_inertia=np.array([0.3, 0.2, 0.05]), spring_stiffness=np.array([800.0, 600.0, 300.0]),
-                               spring_cubic=zero, spring_damping=zero, link_viscous=zero, motor_viscous=zero,
-                               motor_coulomb=zero, coulomb_speed=np.ones(n), stop_lower=-inf, stop_upper=inf,
-                               stop_stiffness=zero, stop_damping=zero, driver_torque_limit=inf)
+    elements = ElasticElements.lossless([0.3, 0.2, 0.05], [800.0, 600.0, 300.0])
     return links, dataclasses.replace(elements, **changes)
 
 

@@ -33,11 +33,8 @@ def _sorted(p):
 def test_two_link_arm_poles_equal_the_target_loop_linearised_by_hand():
     links = UrdfChain.from_file(bundled_urdf("two_link_arm.urdf"), ["shoulder", "elbow"])
     B, K = np.array([0.2, 0.1]), np.array([400.0, 250.0])
-    zero, n = np.zeros(2), 2
-    elements = ElasticElements(motor_inertia=B, spring_stiffness=K, spring_cubic=zero, spring_damping=zero,
-                               link_viscous=zero, motor_viscous=zero, motor_coulomb=zero, coulomb_speed=np.ones(2),
-                               stop_lower=np.full(2, -np.inf), stop_upper=np.full(2, np.inf), stop_stiffness=zero,
-                               stop_damping=zero, driver_torque_limit=np.full(2, np.inf))
+    n = 2
+    elements = ElasticElements.lossless(B, K)
     gains = stack_gains([Gains(motor_stiffness=300.0, motor_damping=8.0, link_damping=4.0),
                          Gains(motor_stiffness=200.0, motor_damping=5.0, link_damping=2.0)])
     law = make_law("link_damping", ChainNominal(links, B, K), gains)

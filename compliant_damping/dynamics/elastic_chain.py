@@ -45,6 +45,16 @@ class ElasticElements:
     driver_torque_limit: np.ndarray  # N m (inf: none)
 
     @classmethod
+    def lossless(cls, motor_inertia, spring_stiffness) -> "ElasticElements":
+        """Linear springs only: no damping, friction, end stops or driver saturation."""
+        b = np.asarray(motor_inertia, dtype=float)
+        zero, inf = np.zeros(len(b)), np.full(len(b), np.inf)
+        return cls(motor_inertia=b, spring_stiffness=np.asarray(spring_stiffness, dtype=float), spring_cubic=zero,
+                   spring_damping=zero, link_viscous=zero, motor_viscous=zero, motor_coulomb=zero,
+                   coulomb_speed=np.ones(len(b)), stop_lower=-inf, stop_upper=inf, stop_stiffness=zero,
+                   stop_damping=zero, driver_torque_limit=inf)
+
+    @classmethod
     def from_joint_params(cls, joints) -> "ElasticElements":
         """From model.JointParams per joint (their link inertia and gravity are the links' business)."""
         return cls(**{f.name: np.array([getattr(j, f.name) for j in joints], dtype=float) for f in fields(cls)})

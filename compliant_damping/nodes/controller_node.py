@@ -3,8 +3,9 @@
 Topics (relative names):
 
 * ``joint_states`` in (sensor_msgs/JointState; best effort, keep last 1: the newest sample
-  is kept and older ones are dropped, counted from the messages' reception sequence numbers,
-  so a storm cannot build up latency). Every new stamp is one control tick; its stamp is the
+  is kept and older ones are dropped, so a storm cannot build up latency). Drops are counted
+  from the gaps in DDS sequence numbers: the reception numbers where the middleware gives them,
+  else the publication numbers (Fast DDS), which assumes one publisher (the driver). Every new stamp is one control tick; its stamp is the
   tick's time (arrival time when unstamped). A message repeating the stamp already answered
   gets the same command again (a lock-step joint resends its state when no answer came); a
   stamp older than the last answered, or more than ``watchdog_timeout`` ahead of the node
