@@ -17,22 +17,85 @@ from .sample import JointSample, Reference
 __all__ = ["JointController", "RobotController", "blend_gains", "bank", "stack_gains"]
 
 
-def blend_gains(old: Gains, new: Gains, w: float, motor_inertia: float) -> Gains:
-    """Gains a fraction ``w`` (0..1) of the way from ``old`` to ``new``.
+def blend_gains(old: Gains, new: Gains, w: float, motor_inertia) -> Gains:
+    """Gains a fraction ``w`` (0..1) of the way from ``old`` to ``new``; floats or per-joint arrays.
 
-    An unset motor inertia target (0) blends as the nominal motor inertia, which
-    is the same law, so shaping fades in without a jump.
+    An unset motor inertia target (0) blends as the nominal motor inertia (kg m^2, one per
+    joint for arrays), which is the same law, so shaping fades in without a jump. The damper's
+    order cannot blend: where either virtual mass is 0 the new one applies at once.
     """
     def value(name, g):
         v = getattr(g, name)
-        return motor_inertia if name == "motor_inertia_target" and v == 0.0 else v
+        return np.where(v == 0.0, motor_inertia, v) if name == "motor_inertia_target" else v
     mixed = {f.name: (1.0 - w) * value(f.name, old) + w * value(f.name, new) for f in fields(Gains)}
-    if new.virtual_mass == 0.0 or old.virtual_mass == 0.0:  # the damper's order cannot blend
-        mixed["virtual_mass"] = new.virtual_mass
+    mixed["virtual_mass"] = np.where((new.virtual_mass == 0.0) | (old.virtual_mass == 0.0), new.virtual_mass,
+                                     mixed["virtual_mass"])
+    if np.ndim(new.motor_stiffness) == 0:  # one joint: the float laws keep plain floats
+        mixed = {k: float(v) for k, v in mixed.items()}
     return Gains(**mixed)
 
 
-class JointController:
+class _ScheduledLaw:
+    """The law, its gains and their ramp, shared by :class:`JointController` and :class:`RobotController`.
+
+    Law switches and gain changes restart or retune the running law (laws.LawRunner) bumpless:
+    a switch restarts the states to reproduce the last command; a ramp moves the gains linearly
+    in stamp time, keeping the states while their number is unchanged.
+    """
+
+    def __init__(self, law: str, model, gains: Gains, torque_sensor: bool):
+        check_gains(law, gains)
+        self.law_name, self.model, self.gains = law, model, gains
+        self.torque_sensor = torque_sensor
+        self._runner: LawRunner | None = None   # built on the first good reading
+        self._ramp = None                       # (from gains, start time s, duration s)
+
+    def switch_law(self, law: str, gains: Gains | None = None) -> None:
+        """Change law (and gains) at once, bumpless: states restart to reproduce the last command."""
+        gains = self.gains if gains is None else gains
+        check_gains(law, gains)
+        self.law_name, self.gains, self._ramp, self._runner = law, gains, None, None
+
+    def set_gains(self, gains: Gains, t: float, ramp_time: float) -> None:
+        """Move to ``gains`` linearly over ``ramp_time`` s from stamp time ``t`` (s)."""
+        check_gains(self.law_name, gains)
+        start = self._runner.law.gains if self._runner is not None else self.gains
+        self.gains = gains
+        self._ramp = (start, t, ramp_time) if ramp_time > 0.0 else None
+        if self._runner is not None and self._ramp is None:
+            self._rebuild(gains)
+
+    def _run_law(self, s, ref, t: float, dt: float, previous_torque):
+        """The law's torque for reading ``s`` at stamp time ``t``, its states advanced by ``dt`` s."""
+        gains = self._apply_ramp(t)
+        if self._runner is None:
+            self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s, ref,
+                                     previous_torque=previous_torque)
+        return self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
+
+    def _apply_ramp(self, t) -> Gains:
+        """Gains in effect at ``t`` (s); a running law follows the ramp, a new one starts on it."""
+        if self._ramp is None:
+            return self.gains
+        start, t0, duration = self._ramp
+        w = min(max((t - t0) / duration, 0.0), 1.0)
+        gains = blend_gains(start, self.gains, w, self.model.motor_inertia)
+        if self._runner is not None:
+            self._rebuild(gains)
+        if w >= 1.0:
+            self._ramp = None
+        return gains
+
+    def _rebuild(self, gains: Gains):
+        """Swap the running law's gains, keeping its states when their number is unchanged."""
+        law = make_law(self.law_name, self.model, gains, self.torque_sensor)
+        if law.n_states != self._runner.law.n_states:
+            self._runner = None  # re-initialised bumpless on this tick
+            return
+        self._runner.set_law(law)
+
+
+class JointController(_ScheduledLaw):
     """Law + safety filter for one joint, with bumpless law switching and gain ramps.
 
     Parameters
@@ -52,12 +115,8 @@ class JointController:
 
     def __init__(self, law: str, model: NominalModel, gains: Gains, limits: Limits,
                  safe_mode: str = "zero_torque", torque_sensor: bool = False, period: float = 1e-3):
-        check_gains(law, gains)
-        self.law_name, self.model, self.gains = law, model, gains
-        self.torque_sensor = torque_sensor
+        super().__init__(law, model, gains, torque_sensor)
         self.safety = SafetyFilter(limits, safe_mode, period, self._accel_bound(limits))
-        self._runner: LawRunner | None = None   # built on the first good reading
-        self._ramp = None                       # (from gains, start time s, duration s)
 
     @property
     def fault(self) -> Fault | None:
@@ -83,11 +142,7 @@ class JointController:
                 lim = self.safety.limits
                 if not lim.position_lower <= q_d <= lim.position_upper:
                     ref = Reference(min(max(q_d, lim.position_lower), lim.position_upper), dq_d, ddq_d)
-                gains = self._apply_ramp(t)
-                if self._runner is None:
-                    self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s,
-                                             ref, previous_torque=self.safety.last_torque)
-                tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
+                tau = self._run_law(s, ref, t, dt, self.safety.last_torque)
         return self.safety.filter(s, tau, t)
 
     def ramp_down(self, t: float) -> float:
@@ -112,46 +167,10 @@ class JointController:
             self._runner = None
         return fault
 
-    def switch_law(self, law: str, gains: Gains | None = None) -> None:
-        """Change law (and gains) at once, bumpless: states restart to reproduce the last command."""
-        gains = self.gains if gains is None else gains
-        check_gains(law, gains)
-        self.law_name, self.gains, self._ramp, self._runner = law, gains, None, None
-
-    def set_gains(self, gains: Gains, t: float, ramp_time: float) -> None:
-        """Move to ``gains`` linearly over ``ramp_time`` s from ``t``."""
-        check_gains(self.law_name, gains)
-        start = self._runner.law.gains if self._runner is not None else self.gains
-        self.gains = gains
-        self._ramp = (start, t, ramp_time) if ramp_time > 0.0 else None
-        if self._runner is not None and self._ramp is None:
-            self._rebuild(gains)
-
     def set_limits(self, limits: Limits) -> None:
         """New safety limits from the next tick (a lowered torque limit applies at once)."""
         self.safety.limits = limits
         self.safety.accel_bound = self._accel_bound(limits)
-
-    def _apply_ramp(self, t) -> Gains:
-        """Gains in effect at ``t`` (s); a running law follows the ramp, a new one starts on it."""
-        if self._ramp is None:
-            return self.gains
-        start, t0, duration = self._ramp
-        w = min(max((t - t0) / duration, 0.0), 1.0)
-        gains = blend_gains(start, self.gains, w, self.model.motor_inertia)
-        if self._runner is not None:
-            self._rebuild(gains)
-        if w >= 1.0:
-            self._ramp = None
-        return gains
-
-    def _rebuild(self, gains: Gains):
-        """Swap the running law's gains, keeping its states when their number is unchanged."""
-        law = make_law(self.law_name, self.model, gains, self.torque_sensor)
-        if law.n_states != self._runner.law.n_states:
-            self._runner = None  # re-initialised bumpless on this tick
-            return
-        self._runner.set_law(law)
 
 
 def bank(setup) -> list:
@@ -161,14 +180,15 @@ def bank(setup) -> list:
             for j in setup.joints]
 
 
-class RobotController:
+class RobotController(_ScheduledLaw):
     """One law for a robot with coupled links, a safety filter per joint; nothing else sends torque.
 
     The law runs on all joints at once (laws.ChainNominal, per-joint gains stacked as arrays);
     each joint's command passes its own safety.SafetyFilter. A fault on one joint puts every
     joint in safe mode: the others trip with ``FaultCode.OTHER_JOINT`` naming it, and the law
-    is not run on a tick whose readings violate a limit. Bumpless start: the law's states are
-    chosen so that its first torques equal the last commands.
+    is not run on a tick whose readings violate a limit. Bumpless start, law switching and gain
+    ramps work for the whole robot as for one joint (:class:`JointController`): the law's states
+    are chosen so that its first torques equal the last commands.
 
     Parameters
     ----------
@@ -187,17 +207,22 @@ class RobotController:
 
     def __init__(self, law: str, model, gains, limits, joint_names, safe_mode: str = "zero_torque",
                  torque_sensor: bool = False, period: float = 1e-3):
-        for g in gains:
-            check_gains(law, g)
-        self.law_name, self.model, self.joint_names = law, model, list(joint_names)
-        self.gains = stack_gains(gains)
-        check_gains(law, self.gains)  # the damper order must agree across the joints
-        self.torque_sensor = torque_sensor
+        super().__init__(law, model, self._stacked(law, gains), torque_sensor)
+        self.joint_names = list(joint_names)
         self.filters = [SafetyFilter(lim, safe_mode, period, motor_accel_bound(lim, b, k))
                         for lim, b, k in zip(limits, model.motor_inertia, model.spring_stiffness)]
-        self._lower = np.array([lim.position_lower for lim in limits])  # reference clipping, rad
-        self._upper = np.array([lim.position_upper for lim in limits])
-        self._runner: LawRunner | None = None
+        self._clip_limits()
+
+    @staticmethod
+    def _stacked(law: str, gains) -> Gains:
+        """Per-joint gains checked one by one, then stacked (the damper order must agree across joints)."""
+        for g in gains:
+            check_gains(law, g)
+        return stack_gains(gains)
+
+    def _clip_limits(self) -> None:
+        self._lower = np.array([f.limits.position_lower for f in self.filters])  # reference clipping, rad
+        self._upper = np.array([f.limits.position_upper for f in self.filters])
 
     @property
     def faults(self) -> list:
@@ -212,10 +237,7 @@ class RobotController:
         if healthy:
             s = JointSample(*(np.array(column, dtype=float) for column in zip(*readings)))
             ref = Reference(np.clip(ref[0], self._lower, self._upper), ref[1], ref[2])  # as JointController
-            if self._runner is None:
-                law = make_law(self.law_name, self.model, self.gains, self.torque_sensor)
-                self._runner = LawRunner(law, s, ref, previous_torque=np.array([f.last_torque for f in self.filters]))
-            tau = self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)
+            tau = self._run_law(s, ref, t, dt, np.array([f.last_torque for f in self.filters]))
         elif self.filters[0].fault is None and not all(np.all(np.isfinite(r)) for r in ref):
             self.filters[0].trip(Fault(FaultCode.NON_FINITE_REFERENCE, "non-finite reference"))
         out = np.array([f.filter(s, None if tau is None else float(tau[j]), t)
@@ -231,10 +253,18 @@ class RobotController:
         for f in self.filters:
             f.trip(Fault(FaultCode.OTHER_JOINT, f"{name}: {fault}"))
 
+    def ramp_down(self, t: float) -> np.ndarray:
+        """Commands (N m) at stamp time ``t`` without fresh readings: towards zero at each slew limit."""
+        return np.array([f.ramp_down(t) for f in self.filters])
+
     def trip(self, fault: Fault) -> None:
         """Every joint to safe mode with ``fault``."""
         for f in self.filters:
             f.trip(fault)
+
+    def stop(self, reason: str = "stop requested") -> None:
+        """Every joint to safe mode now on request."""
+        self.trip(Fault(FaultCode.STOP_REQUESTED, reason))
 
     def reset(self) -> list:
         """Clear the faults if every joint's last reading is within limits; returns the faults that stay."""
@@ -244,6 +274,20 @@ class RobotController:
                 f.reset()
             self._runner = None
         return staying
+
+    def switch_law(self, law: str, gains=None) -> None:
+        """Change law (and per-joint gains) at once, bumpless for every joint."""
+        super().switch_law(law, None if gains is None else self._stacked(law, gains))
+
+    def set_gains(self, gains, t: float, ramp_time: float) -> None:
+        """Move every joint to its new gains (sequence, joint order) over ``ramp_time`` s from ``t``."""
+        super().set_gains(self._stacked(self.law_name, gains), t, ramp_time)
+
+    def set_limits(self, limits) -> None:
+        """New per-joint safety limits from the next tick (a lowered torque limit applies at once)."""
+        for f, lim, b, k in zip(self.filters, limits, self.model.motor_inertia, self.model.spring_stiffness):
+            f.limits, f.accel_bound = lim, motor_accel_bound(lim, b, k)
+        self._clip_limits()
 
 
 def stack_gains(gains) -> Gains:
