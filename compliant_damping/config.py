@@ -37,20 +37,22 @@ from __future__ import annotations
 
 import difflib
 import math
-from dataclasses import MISSING, dataclass, fields
+from dataclasses import MISSING, dataclass, field, fields
 
-from .laws import LAW_NAMES, Gains, NominalModel, check_gains
-from .model import JointParams
+from .dynamics.elastic_chain import PlaneContact
+from .laws import LAW_NAMES, Gains, NominalDrive, NominalModel, check_gains
+from .model import LINK_KEYS, DriveParams, JointParams
 from .parameter_files import (ConfigError, YamlSyntaxError, bundled, flatten, layered_parameters,
                               node_parameters, read, share_dir)
 
 __all__ = ["CONTROLLER_NODE", "SIM_NODE", "PACED_EFFORT", "ConfigError", "YamlSyntaxError", "Problems", "Checked",
            "Setting", "ParamSpec", "parameter_specs", "unknown_key", "build", "dataclass_keys",
            "CONTROLLER_SETTINGS", "CONTROLLER_JOINT_SETTINGS", "CONTROLLER_JOINT_GROUPS", "SIM_SETTINGS",
-           "SIM_JOINT_SETTINGS", "SIM_JOINT_GROUPS", "ControllerJoint", "ControllerSetup", "controller_check",
+           "SIM_JOINT_SETTINGS", "SIM_JOINT_GROUPS", "ControllerJoint", "ControllerSetup", "controller_check", "describes_robot",
            "controller_setup", "SimJoint", "SimSetup", "sim_check", "sim_setup", "load", "load_controller",
            # reading, sections and layering live in parameter_files; callers find them here too
            "bundled", "flatten", "layered_parameters", "node_parameters", "read", "share_dir"]
+from .robot_section import URDF_KEYS, build_links, describes_robot, robot_source
 from .safety import SAFE_MODES, Limits
 from .sensors import SensorParams
 
@@ -93,8 +95,11 @@ _CHECKS = {
 }
 
 
-def _typed(key: str, value, kind):
-    """``value`` checked against the ROS type ``kind`` (float, int, bool, str, list of str)."""
+def _typed(key: str, value, kind, empty_ok: bool = False):
+    """``value`` checked against the ROS type ``kind`` (float, int, bool, str, list of str).
+
+    ``empty_ok``: an empty string is allowed (a string setting whose default "" means none).
+    """
     if kind is float:
         if isinstance(value, bool) or not isinstance(value, float):
             hint = f" (write {float(value)!r}: ROS parameter files are typed)" if isinstance(value, int) and not isinstance(value, bool) else ""
@@ -106,7 +111,7 @@ def _typed(key: str, value, kind):
         if not isinstance(value, bool):
             raise ConfigError(key, f"expected true or false, got {value!r}")
     elif kind is str:
-        if not isinstance(value, str) or not value:
+        if not isinstance(value, str) or not (value or empty_ok):
             raise ConfigError(key, f"expected a non-empty string, got {value!r}")
     elif kind is list:
         if not isinstance(value, list) or not value or not all(isinstance(v, str) and v for v in value):
@@ -178,6 +183,9 @@ CONTROLLER_SETTINGS = (
     Setting("spring_torque_source", str, "deflection", "spring torque from the deflection or the effort field",
             ("deflection", "effort")),
     Setting("array_output", bool, False, "also publish an ordered Float64MultiArray of efforts"),
+    Setting("nominal_urdf", str, "", "controller's URDF file: path or package://PACKAGE/PATH "
+            "('' with no robot_description: built-in pendulum joints from <joint>.model)"),
+    Setting("robot_description", str, "", "controller's URDF as a string, the ROS convention (or nominal_urdf)"),
 )
 CONTROLLER_JOINT_SETTINGS = (
     Setting("link_state", str, lambda n: n, "JointState entry with the link position and velocity"),
@@ -185,6 +193,7 @@ CONTROLLER_JOINT_SETTINGS = (
     Setting("command", str, lambda n: f"{n}_motor", "name of this joint's effort command"),
 )
 CONTROLLER_JOINT_GROUPS = (("model.", NominalModel), ("gains.", Gains), ("limits.", Limits))
+CONTROLLER_URDF_JOINT_GROUPS = (("model.", NominalDrive), ("gains.", Gains), ("limits.", Limits))  # the URDF gives the links
 
 SIM_SETTINGS = (
     Setting("joint_names", list, MISSING, "simulated joints"),
@@ -193,17 +202,25 @@ SIM_SETTINGS = (
     Setting("command_timeout", float, 0.05, "s; older effort commands are replaced by zero", check="positive"),
     Setting("lock_step", bool, False, "advance one period per command and publish /clock"),
     Setting("seed", int, 0, "seed of the sensor noise"),
+    Setting("robot_urdf", str, "", "simulated robot's URDF file: path or package://PACKAGE/PATH "
+            "('' with no robot_description: built-in pendulum joints)"),
+    Setting("robot_description", str, "", "simulated robot's URDF as a string (or robot_urdf)"),
+    Setting("contact.frame", str, "", "URDF frame that touches the floor plane z = contact.height ('': no floor)"),
+    Setting("contact.height", float, 0.0, "m, height of the floor plane in the URDF world", check="finite"),
+    Setting("contact.stiffness", float, 1.0e5, "N/m, floor contact stiffness", check="positive"),
+    Setting("contact.damping", float, 500.0, "N s/m, floor contact damping (push only)", check="nonnegative"),
 )
 SIM_JOINT_SETTINGS = (
     Setting("initial_position", float, 0.0, "rad, link at rest there, spring holding gravity", check="finite"),
 )
 SIM_JOINT_GROUPS = (("", JointParams), ("", SensorParams))
+SIM_URDF_JOINT_GROUPS = (("", DriveParams), ("", SensorParams))
 
 
 def _setting(params: dict, setting: Setting, joint: str | None = None):
     key = setting.key if joint is None else f"{joint}.{setting.key}"
     default = setting.default(joint) if callable(setting.default) else setting.default
-    value = _typed(key, params[key], setting.kind) if key in params else default
+    value = _typed(key, params[key], setting.kind, default == "") if key in params else default
     if value is MISSING:
         raise ConfigError(key, f"required ({setting.doc})")
     if setting.choices and value not in setting.choices:
@@ -221,23 +238,26 @@ def _settings(params: dict, table, problems: Problems, joint: str | None = None)
     return {k: v for k, v in values.items() if v is not None}
 
 
-def unknown_key(key: str, node: str, joint_names) -> ConfigError:
+def unknown_key(key: str, node: str, joint_names, robot: bool = False) -> ConfigError:
     """Refusal of ``key``, unknown to ``node`` with these joints, naming the closest known key.
 
     The candidates are the known keys of that joint when ``key`` starts with a joint name,
-    else every known key of the node (difflib's similarity ratio, cut-off 0.6).
+    else every known key of the node (difflib's similarity ratio, cut-off 0.6). ``robot``: the
+    node section names a URDF, which gives the link parameters (model.LINK_KEYS).
     """
-    known = [s.key for s in parameter_specs(node, joint_names)]
     head = key.split(".", 1)[0]
+    if robot and head in joint_names and key.rsplit(".", 1)[-1] in LINK_KEYS:
+        return ConfigError(key, f"the URDF gives the links of {node}; remove the built-in joint's link parameter")
+    known = [s.key for s in parameter_specs(node, joint_names, robot)]
     pool = [k for k in known if k.startswith(f"{head}.")] if head in joint_names else known
     close = difflib.get_close_matches(key, pool, n=1)
     hint = f"; did you mean {close[0]}?" if close else ""
     return ConfigError(key, f"unknown key in {node}{hint} (`cdamp keys` lists the known keys)")
 
 
-def _unknown(params: dict, node: str, joint_names, problems: Problems) -> None:
-    known = {s.key for s in parameter_specs(node, joint_names)}
-    problems.found += [unknown_key(k, node, joint_names) for k in sorted(set(params) - known)]
+def _unknown(params: dict, node: str, joint_names, robot: bool, problems: Problems) -> None:
+    known = {s.key for s in parameter_specs(node, joint_names, robot)}
+    problems.found += [unknown_key(k, node, joint_names, robot) for k in sorted(set(params) - known)]
 
 
 @dataclass(frozen=True)
@@ -250,11 +270,21 @@ class ParamSpec:
     description: str
 
 
-def parameter_specs(node: str, joint_names) -> list:
-    """Every parameter of ``node`` (CONTROLLER_NODE or SIM_NODE) for the given joints."""
-    settings, joint_settings, groups = ((CONTROLLER_SETTINGS, CONTROLLER_JOINT_SETTINGS, CONTROLLER_JOINT_GROUPS)
-                                        if node == CONTROLLER_NODE else
-                                        (SIM_SETTINGS, SIM_JOINT_SETTINGS, SIM_JOINT_GROUPS))
+def _joint_groups(node: str, robot: bool):
+    if node == CONTROLLER_NODE:
+        return CONTROLLER_URDF_JOINT_GROUPS if robot else CONTROLLER_JOINT_GROUPS
+    return SIM_URDF_JOINT_GROUPS if robot else SIM_JOINT_GROUPS
+
+
+def parameter_specs(node: str, joint_names, robot: bool = False) -> list:
+    """Every parameter of ``node`` (CONTROLLER_NODE or SIM_NODE) for the given joints.
+
+    ``robot``: the section names a URDF (robot_section.describes_robot), so the per-joint keys
+    are the drive's only; otherwise they include the built-in pendulum link's.
+    """
+    settings, joint_settings = ((CONTROLLER_SETTINGS, CONTROLLER_JOINT_SETTINGS) if node == CONTROLLER_NODE
+                                else (SIM_SETTINGS, SIM_JOINT_SETTINGS))
+    groups = _joint_groups(node, robot)
     specs = [ParamSpec(s.key, s.kind, s.default, s.doc) for s in settings]
     for n in joint_names:
         specs += [ParamSpec(f"{n}.{s.key}", s.kind, s.default(n) if callable(s.default) else s.default, s.doc)
@@ -274,7 +304,7 @@ class ControllerJoint:
     link_state: str      # JointState entry with the link position/velocity (and spring torque as effort)
     motor_state: str     # JointState entry with the motor position/velocity
     command: str         # name of the effort command for this joint's motor
-    model: NominalModel
+    model: NominalDrive  # a NominalModel (drive and pendulum link) for the built-in joints
     gains: Gains
     limits: Limits
 
@@ -290,13 +320,16 @@ class ControllerSetup:
     lock_gains: bool
     spring_torque_source: str  # "deflection" or "effort"
     array_output: bool
+    links: object = field(compare=False)  # link dynamics of the nominal model (built from the rest)
+    urdf_source: str | None   # where its URDF came from; None for the built-in joints
 
     @property
     def joint_names(self):
         return [j.name for j in self.joints]
 
 
-def _controller_joint(params: dict, name: str, law: str | None, problems: Problems) -> ControllerJoint | None:
+def _controller_joint(params: dict, name: str, law: str | None, robot: bool,
+                      problems: Problems) -> ControllerJoint | None:
     before = len(problems.found)
     gains = build(Gains, params, f"{name}.gains.", problems)
     if gains is not None and law is not None:
@@ -306,7 +339,7 @@ def _controller_joint(params: dict, name: str, law: str | None, problems: Proble
             field_name, _, reason = str(err).partition(": ")
             problems.found.append(ConfigError(f"{name}.gains.{field_name}", reason))
     names = _settings(params, CONTROLLER_JOINT_SETTINGS, problems, name)
-    model = build(NominalModel, params, f"{name}.model.", problems)
+    model = build(NominalDrive if robot else NominalModel, params, f"{name}.model.", problems)
     limits = build(Limits, params, f"{name}.limits.", problems)
     if len(problems.found) > before:
         return None
@@ -324,9 +357,14 @@ def controller_check(params: dict) -> Checked:
     names = top.pop("joint_names", None)
     if names is None:  # without the joints, per-joint keys cannot be told from unknown ones
         return Checked(None, tuple(problems.found))
-    joints = [_controller_joint(params, n, top.get("law"), problems) for n in names]
-    _unknown(params, CONTROLLER_NODE, names, problems)
-    setup = None if problems.found else ControllerSetup(joints=tuple(joints), **top)
+    robot = describes_robot(params, CONTROLLER_NODE)
+    joints = [_controller_joint(params, n, top.get("law"), robot, problems) for n in names]
+    _unknown(params, CONTROLLER_NODE, names, robot, problems)
+    source = problems.attempt(robot_source, params, CONTROLLER_NODE)
+    links = None if problems.found else problems.attempt(build_links, source, names, [j.model for j in joints])
+    setup = None if problems.found else ControllerSetup(joints=tuple(joints), links=links,
+                                                        urdf_source=source and source.origin,
+                                                        **_plain(top, CONTROLLER_NODE))
     return Checked(setup, tuple(problems.found))
 
 
@@ -358,15 +396,18 @@ class SimSetup:
     command_timeout: float   # s: older commands are replaced by zero torque
     lock_step: bool          # advance one period per command and publish /clock
     seed: int                # noise seed
+    links: object = field(compare=False)  # link dynamics of the simulated robot (built from the rest)
+    urdf_source: str | None  # where its URDF came from; None for the built-in joints
+    contact: PlaneContact | None  # the floor under a URDF frame, if any
 
     @property
     def joint_names(self):
         return [j.name for j in self.joints]
 
 
-def _sim_joint(params: dict, name: str, problems: Problems) -> SimJoint | None:
+def _sim_joint(params: dict, name: str, robot: bool, problems: Problems) -> SimJoint | None:
     before = len(problems.found)
-    plant = build(JointParams, params, f"{name}.", problems)
+    plant = build(DriveParams if robot else JointParams, params, f"{name}.", problems)
     q0 = _settings(params, SIM_JOINT_SETTINGS, problems, name).get("initial_position")
     if plant is not None and q0 is not None and not plant.stop_lower <= q0 <= plant.stop_upper:
         problems.found.append(ConfigError(f"{name}.initial_position", f"{q0} rad is outside the end stops"))
@@ -383,10 +424,35 @@ def sim_check(params: dict) -> Checked:
     names = top.pop("joint_names", None)
     if names is None:
         return Checked(None, tuple(problems.found))
-    joints = [_sim_joint(params, n, problems) for n in names]
-    _unknown(params, SIM_NODE, names, problems)
-    setup = None if problems.found else SimSetup(joints=tuple(joints), **top)
-    return Checked(setup, tuple(problems.found))
+    robot = describes_robot(params, SIM_NODE)
+    joints = [_sim_joint(params, n, robot, problems) for n in names]
+    _unknown(params, SIM_NODE, names, robot, problems)
+    source = problems.attempt(robot_source, params, SIM_NODE)
+    links = None if problems.found else problems.attempt(build_links, source, names, [j.plant for j in joints])
+    contact = None if problems.found else problems.attempt(_contact, top, links)
+    if problems.found:
+        return Checked(None, tuple(problems.found))
+    return Checked(SimSetup(joints=tuple(joints), links=links, urdf_source=source and source.origin,
+                            contact=contact, **_plain(top, SIM_NODE)), ())
+
+
+def _plain(top: dict, node: str) -> dict:
+    """The top-level settings that are setup fields as they are (the robot section's are built)."""
+    return {k: v for k, v in top.items() if k not in URDF_KEYS[node] and not k.startswith("contact.")}
+
+
+def _contact(top: dict, links) -> PlaneContact | None:
+    """The floor plane of the ``contact.*`` settings; None without a frame."""
+    frame = top["contact.frame"]
+    if not frame:
+        return None
+    if not hasattr(links, "frame_position"):
+        raise ConfigError("contact.frame", "a floor contact needs the robot's geometry: name a URDF "
+                                           "(robot_urdf or robot_description)")
+    if frame not in links.frame_names:
+        raise ConfigError("contact.frame", f"no frame {frame!r} in {links.source}")
+    return PlaneContact(frame, height=top["contact.height"], stiffness=top["contact.stiffness"],
+                        damping=top["contact.damping"])
 
 
 def sim_setup(params: dict) -> SimSetup:

@@ -47,13 +47,19 @@ from .sample import JointSample
 LAW_NAMES = ("zero", "motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
 
 
-@dataclass(frozen=True)
-class NominalModel:
-    """The controller's own model of the joint (need not equal the plant)."""
+@dataclass(frozen=True, kw_only=True)
+class NominalDrive:
+    """The controller's model of one joint's drive: motor inertia and spring (a URDF gives the links)."""
 
-    link_inertia: float = param("kg m^2", "positive", "nominal link inertia M", 1.0, required=True)
     motor_inertia: float = param("kg m^2", "positive", "nominal motor inertia B (link side)", 1.0, required=True)
     spring_stiffness: float = param("N m/rad", "positive", "nominal spring stiffness k", 100.0, required=True)
+
+
+@dataclass(frozen=True, kw_only=True)
+class NominalModel(NominalDrive):
+    """The controller's own model of a bench joint, drive and pendulum link (need not equal the plant)."""
+
+    link_inertia: float = param("kg m^2", "positive", "nominal link inertia M", 1.0, required=True)
     gravity_torque: float = param("N m", "nonnegative", "nominal pendulum load m g0 l", 0.0)
     gravity_offset: float = param("rad", "finite", "nominal pendulum offset q_off", 0.0)
 

@@ -31,11 +31,14 @@ except ImportError:  # pragma: no cover - exercised only where numba is absent
         return lambda fn: fn
 
 
-@dataclass(frozen=True)
-class JointParams:
-    """Physical parameters of one simulated series-elastic joint (SI units)."""
+@dataclass(frozen=True, kw_only=True)
+class DriveParams:
+    """One simulated joint's drive: motor, elastic element, friction, end stops and driver (SI units).
 
-    link_inertia: float = param("kg m^2", "positive", "link inertia M")
+    Everything of a joint but its link; a URDF gives the links of a chain
+    (dynamics.elastic_chain.ElasticElements takes these per joint).
+    """
+
     motor_inertia: float = param("kg m^2", "positive", "motor inertia B, reflected to the link side")
     spring_stiffness: float = param("N m/rad", "positive", "linear spring stiffness k")
     spring_cubic: float = param("N m/rad^3", "nonnegative", "progressive spring term k3", 0.0)
@@ -44,8 +47,6 @@ class JointParams:
     motor_viscous: float = param("N m s/rad", "nonnegative", "motor viscous friction d_th", 0.0)
     motor_coulomb: float = param("N m", "nonnegative", "motor Coulomb friction tau_c", 0.0)
     coulomb_speed: float = param("rad/s", "positive", "speed below which Coulomb friction is smoothed (tanh)", 0.01)
-    gravity_torque: float = param("N m", "nonnegative", "pendulum load m g0 l (0: no gravity)", 0.0)
-    gravity_offset: float = param("rad", "finite", "pendulum angle offset q_off", 0.0)
     stop_lower: float = param("rad", "not_nan", "lower end stop q_min (-inf: none)", -math.inf)
     stop_upper: float = param("rad", "not_nan", "upper end stop q_max (inf: none)", math.inf)
     stop_stiffness: float = param("N m/rad", "nonnegative", "end-stop contact stiffness", 2.0e4)
@@ -57,8 +58,19 @@ class JointParams:
             raise ValueError(f"stop_lower: must be below stop_upper ({self.stop_upper})")
 
 
+@dataclass(frozen=True, kw_only=True)
+class JointParams(DriveParams):
+    """Physical parameters of one simulated series-elastic joint of the built-in bench: its drive
+    and a pendulum link (SI units)."""
+
+    link_inertia: float = param("kg m^2", "positive", "link inertia M")
+    gravity_torque: float = param("N m", "nonnegative", "pendulum load m g0 l (0: no gravity)", 0.0)
+    gravity_offset: float = param("rad", "finite", "pendulum angle offset q_off", 0.0)
+
+
+LINK_KEYS = tuple(f.name for f in fields(JointParams) if f.name not in {g.name for g in fields(DriveParams)})
 N_PARAMS = len(fields(JointParams))
-(M, B, K, K3, DS, DQ, DTH, TC, VC, MGL, QOFF, QMIN, QMAX, KSTOP, DSTOP, TAUMAX) = range(N_PARAMS)
+(B, K, K3, DS, DQ, DTH, TC, VC, QMIN, QMAX, KSTOP, DSTOP, TAUMAX, M, MGL, QOFF) = range(N_PARAMS)
 
 
 def pack(joints) -> np.ndarray:

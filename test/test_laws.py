@@ -23,8 +23,9 @@ GAINS = JOINT.gains
 # The bench joint without dissipation, friction or end stops: the joint the target loop describes.
 IDEAL = dataclasses.replace(SIM_JOINT.plant, spring_damping=0.0, link_viscous=0.0, motor_viscous=0.0,
                             motor_coulomb=0.0, stop_lower=-math.inf, stop_upper=math.inf)
-EXACT = NominalModel(IDEAL.link_inertia, IDEAL.motor_inertia, IDEAL.spring_stiffness,
-                     IDEAL.gravity_torque, IDEAL.gravity_offset)
+EXACT = NominalModel(link_inertia=IDEAL.link_inertia, motor_inertia=IDEAL.motor_inertia,
+                     spring_stiffness=IDEAL.spring_stiffness, gravity_torque=IDEAL.gravity_torque,
+                     gravity_offset=IDEAL.gravity_offset)
 WIDE = Limits(torque=1e3, torque_rate=1e9, deflection=1.0)  # the filter never acts: compare laws only
 
 

@@ -19,7 +19,7 @@ from typing import Sequence
 
 import numpy as np
 
-from ..config import share_dir
+from ..parameter_files import share_dir
 from .links import ForwardDerivatives, LinkDynamics, RobotModelError, as_vector
 
 __all__ = ["UrdfChain", "bundled_urdf", "STANDARD_GRAVITY"]

@@ -1,0 +1,120 @@
+"""The robot section of a parameter file: where the links come from, and the floor contact.
+
+Each node section names its own robot description, so the controller's nominal model and the
+simulated robot can differ (that is how a model mismatch is studied):
+
+* controller (``damping_controller``): ``nominal_urdf`` or ``robot_description``;
+* simulated robot (``simulated_joint``): ``robot_urdf`` or ``robot_description``, and the
+  ``contact.*`` keys of a push-only floor plane under a named URDF frame.
+
+``*_urdf`` is a file: a path (absolute, or relative to the working directory as ROS resolves
+it) or ``package://PACKAGE/PATH`` (this package through its share folder, others through the
+ament index). ``robot_description`` is the URDF document itself, the ROS convention for passing a
+robot to a node. At most one of the two may be set; with neither, the joints are the built-in
+independent pendulum joints and their link parameters are per-joint keys. With a URDF, every
+joint in ``joint_names`` is an elastic revolute joint of it and the link keys
+(model.LINK_KEYS) are refused: the URDF gives the links.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from .dynamics.links import IndependentLinks, RobotModelError
+from .parameter_files import ConfigError, share_dir
+
+__all__ = ["URDF_KEYS", "RobotSource", "robot_source", "describes_robot", "resolve_package_uri", "build_links"]
+
+# The two ways each node section names a URDF: (file key, string key).
+URDF_KEYS = {"damping_controller": ("nominal_urdf", "robot_description"),
+             "simulated_joint": ("robot_urdf", "robot_description")}
+PACKAGE_SCHEME = "package://"
+
+
+@dataclass(frozen=True)
+class RobotSource:
+    """A URDF named by a node section: the key it came from, the document and where it was read."""
+
+    key: str        # the parameter that names it (for errors)
+    xml: str        # the URDF document
+    origin: str     # file path, or "robot_description"
+
+
+def describes_robot(params: dict, node: str) -> bool:
+    """Whether the flat parameters of ``node`` name a URDF (either key set to a non-empty string)."""
+    return any(isinstance(params.get(k), str) and params.get(k) for k in URDF_KEYS[node])
+
+
+def resolve_package_uri(key: str, uri: str) -> Path:
+    """File of a ``package://PACKAGE/PATH`` URI: this package's share folder, else the ament index.
+
+    Raises
+    ------
+    ConfigError
+        Naming ``key``: a malformed URI, or a package the ament index does not know (or no index).
+    """
+    package, _, rest = uri[len(PACKAGE_SCHEME):].partition("/")
+    if not package or not rest:
+        raise ConfigError(key, f"expected package://PACKAGE/PATH, got {uri!r}")
+    if package == "compliant_damping":
+        return share_dir() / rest
+    try:
+        from ament_index_python.packages import PackageNotFoundError, get_package_share_directory
+    except ImportError:
+        raise ConfigError(key, f"{uri}: package {package!r} can only be found through the ament index "
+                               "(source a ROS 2 workspace), or give a path") from None
+    try:
+        return Path(get_package_share_directory(package)) / rest
+    except PackageNotFoundError:
+        raise ConfigError(key, f"{uri}: package {package!r} is not in the ament index") from None
+
+
+def robot_source(params: dict, node: str) -> RobotSource | None:
+    """The URDF that ``node``'s flat parameters name, read; None for the built-in joints.
+
+    Raises
+    ------
+    ConfigError
+        Both keys set, or a file that cannot be read, naming the key.
+    """
+    file_key, text_key = URDF_KEYS[node]
+    path, text = params.get(file_key) or "", params.get(text_key) or ""
+    if path and text:
+        raise ConfigError(text_key, f"give the robot as {file_key} or as {text_key}, not both")
+    if text:
+        return RobotSource(text_key, text, "robot_description")
+    if not path:
+        return None
+    file = resolve_package_uri(file_key, path) if path.startswith(PACKAGE_SCHEME) else Path(path)
+    try:
+        return RobotSource(file_key, file.read_text(), str(file))
+    except OSError as err:
+        raise ConfigError(file_key, f"cannot read the URDF {file} ({err.strerror})") from None
+
+
+def build_links(source: RobotSource | None, joint_names, link_params=()):
+    """Link dynamics for the joints: a URDF chain, or the built-in independent joints.
+
+    Parameters
+    ----------
+    source : RobotSource or None
+        The URDF (:func:`robot_source`); None for the built-in joints.
+    joint_names : sequence of str
+        The elastic joints, in order.
+    link_params : sequence
+        Built-in joints only: per joint a record with ``link_inertia``, ``gravity_torque`` and
+        ``gravity_offset`` (laws.NominalModel or model.JointParams).
+
+    Raises
+    ------
+    ConfigError
+        Naming the URDF key and, in the reason, the joint, link or frame at fault (a URDF that
+        does not parse, a joint not in it or not revolute, a moving link without inertia).
+    """
+    if source is None:
+        return IndependentLinks.from_params(joint_names, link_params)
+    from .dynamics.urdf_chain import UrdfChain
+    try:
+        return UrdfChain(source.xml, joint_names, source=source.origin)
+    except RobotModelError as err:
+        raise ConfigError(source.key, str(err)) from None
