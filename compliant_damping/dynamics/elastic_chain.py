@@ -30,9 +30,10 @@ from ..model import njit  # numba when installed, plain Python otherwise
 
 __all__ = ["ElasticElements", "PlaneContact", "ElasticChain"]
 
-# Rows of the packed (N_ROWS, n) parameter array of the kernels, from ElasticElements.
-K, K3, DS, DQ, DTH, TC, VC, B, LOWER, UPPER, K_STOP, D_STOP = range(12)
-N_ROWS = 12
+# Rows of the kernels' packed (N_ROWS, n) array: parameters from ElasticElements, then the held
+# motor torque and the stage's q, q' and net link torque (one array: fewer arguments to dispatch).
+K, K3, DS, DQ, DTH, TC, VC, B, LOWER, UPPER, K_STOP, D_STOP, TAU_M, Q, DQ_STAGE, LINK = range(16)
+N_ROWS = 16
 
 
 @njit(cache=True)
@@ -49,13 +50,13 @@ def _spring_torques(p, x, out):
 
 
 @njit(cache=True)
-def _elastic_stage(p, x, k, c, tau_m, tau_ext, out, q, dq, link):
+def _elastic_stage(p, x, k, c, tau_ext, out):
     """Rates at the RK4 stage state ``x + c k`` (``c = 0``: ``x`` itself), all but q''.
 
     Writes the stage's q, q' (rad, rad/s) and the net link torque without contacts (N m: spring,
-    link damping, end stops, ``tau_ext``) into ``q``, ``dq``, ``link``, and the rates q', theta',
-    theta'' into columns 0, 2, 3 of ``out``. An end stop only acts once its joint is past it, so
-    a joint within its stops costs two comparisons.
+    link damping, end stops, ``tau_ext``) into rows Q, DQ_STAGE, LINK of ``p``, and the rates q',
+    theta', theta'' (motor torque from row TAU_M) into columns 0, 2, 3 of ``out``. An end stop
+    only acts once its joint is past it, so a joint within its stops costs two comparisons.
     """
     for i in range(x.shape[0]):
         if c != 0.0:
@@ -70,10 +71,10 @@ def _elastic_stage(p, x, k, c, tau_m, tau_ext, out, q, dq, link):
         if qi > p[UPPER, i]:
             push_down = min(-p[K_STOP, i] * (qi - p[UPPER, i]) - p[D_STOP, i] * dqi, 0.0)
         friction = p[DTH, i] * dthi + p[TC, i] * np.tanh(dthi / p[VC, i])
-        q[i], dq[i] = qi, dqi
-        link[i] = tau_s - p[DQ, i] * dqi + (push_up + push_down) + tau_ext[i]
+        p[Q, i], p[DQ_STAGE, i] = qi, dqi
+        p[LINK, i] = tau_s - p[DQ, i] * dqi + (push_up + push_down) + tau_ext[i]
         out[i, 0], out[i, 2] = dqi, dthi
-        out[i, 3] = (tau_m[i] - tau_s - friction) / p[B, i]
+        out[i, 3] = (p[TAU_M, i] - tau_s - friction) / p[B, i]
 
 
 @njit(cache=True)
@@ -173,8 +174,10 @@ class ElasticChain:
         rows = {K: e.spring_stiffness, K3: e.spring_cubic, DS: e.spring_damping, DQ: e.link_viscous,
                 DTH: e.motor_viscous, TC: e.motor_coulomb, VC: e.coulomb_speed, B: e.motor_inertia,
                 LOWER: e.stop_lower, UPPER: e.stop_upper, K_STOP: e.stop_stiffness, D_STOP: e.stop_damping}
-        self._p = np.array([np.broadcast_to(np.asarray(rows[r], dtype=float), (n,)) for r in range(N_ROWS)])
-        self._q, self._dq, self._link = np.zeros(n), np.zeros(n), np.zeros(n)  # stage q, q', net link torque
+        self._p = np.zeros((N_ROWS, n))
+        for r, value in rows.items():
+            self._p[r] = value
+        self._stage_q, self._stage_dq, self._stage_link = self._p[Q], self._p[DQ_STAGE], self._p[LINK]  # views
         self._k = np.zeros((4, n, 4))  # the RK4 stages' rates
 
     def spring_torque(self, x: np.ndarray) -> np.ndarray:
@@ -183,10 +186,11 @@ class ElasticChain:
         _spring_torques(self._p, np.ascontiguousarray(x, dtype=float), out)
         return out
 
-    def _stage(self, x, k, c: float, tau_m, tau_ext, out) -> None:
-        """Rates at the state ``x + c k`` into ``out``: elastic kernel, contacts, then the links' q''."""
-        q, dq, link = self._q, self._dq, self._link
-        _elastic_stage(self._p, x, k, c, tau_m, np.asarray(tau_ext, dtype=float), out, q, dq, link)
+    def _stage(self, x, k, c: float, tau_ext, out) -> None:
+        """Rates at the state ``x + c k`` into ``out`` for the motor torque in row TAU_M: elastic
+        kernel, contacts, then the links' q''."""
+        _elastic_stage(self._p, x, k, c, np.asarray(tau_ext, dtype=float), out)
+        q, dq, link = self._stage_q, self._stage_dq, self._stage_link
         for contact in self.contacts:
             link += contact.torque(self.links, q, dq)
         out[:, 1] = self.links.forward_trusted(q, dq, link)
@@ -195,7 +199,8 @@ class ElasticChain:
         """Time derivative of the (n, 4) state for held motor torques ``tau_m`` and link torques ``tau_ext``."""
         x = np.ascontiguousarray(x, dtype=float)
         out = np.empty_like(x)
-        self._stage(x, x, 0.0, np.asarray(tau_m, dtype=float), tau_ext, out)
+        self._p[TAU_M] = tau_m
+        self._stage(x, x, 0.0, tau_ext, out)
         return out
 
     def advance(self, x: np.ndarray, tau_m, external, t0: float, h: float, steps: int) -> np.ndarray:
@@ -206,14 +211,15 @@ class ElasticChain:
         """
         lim = self.e.driver_torque_limit
         tau = np.clip(np.asarray(tau_m, dtype=float), -lim, lim)
+        self._p[TAU_M] = tau
         k1, k2, k3, k4 = self._k
         for i in range(steps):
             t = t0 + i * h
             mid = external(t + 0.5 * h)
-            self._stage(x, x, 0.0, tau, external(t), k1)
-            self._stage(x, k1, 0.5 * h, tau, mid, k2)
-            self._stage(x, k2, 0.5 * h, tau, mid, k3)
-            self._stage(x, k3, h, tau, external(t + h), k4)
+            self._stage(x, x, 0.0, external(t), k1)
+            self._stage(x, k1, 0.5 * h, mid, k2)
+            self._stage(x, k2, 0.5 * h, mid, k3)
+            self._stage(x, k3, h, external(t + h), k4)
             _rk4_update(x, h, k1, k2, k3, k4)
         return tau
 
