@@ -9,7 +9,8 @@
    (ElasticChain.advance), the controller (RobotController.step, law and safety filters) and
    the rest of the loop (readings, references, logging), timed around each call in the same run.
 3. Cost of one ElasticChain.rates call (the public one) and of one RK4 substep of advance for
-   the leg, in microseconds.
+   the leg, in microseconds, beside the floor of the plant: one Pinocchio ABA call from Python
+   (UrdfChain.forward_trusted), which every RK4 stage makes.
 
     .venv/bin/python benchmarks/robot_speed.py
 """
@@ -129,8 +130,11 @@ def main() -> None:
     rates = statistics.median(per_call(lambda: plant.inner.rates(x, tau, zeros)) for _ in range(ROUNDS))
     substep = statistics.median(per_call(lambda: plant.inner.advance(x, tau, lambda t: zeros, 0.0, 1e-4, 10), 200) / 10
                                 for _ in range(ROUNDS))
+    q, dq = np.ascontiguousarray(x[:, 0]), np.ascontiguousarray(x[:, 1])
+    aba = statistics.median(per_call(lambda: leg.forward_trusted(q, dq, tau)) for _ in range(ROUNDS))
     print(f"leg plant: {rates * 1e6:.1f} us per ElasticChain.rates call, {substep * 1e6:.1f} us per RK4 substep "
-          f"of advance ({substep / rates:.1f} rates calls' worth)")
+          f"of advance ({substep / rates:.1f} rates calls' worth); Pinocchio's ABA from Python alone "
+          f"{aba * 1e6:.1f} us per call, {400 * aba / substep:.0f} % of a substep (4 calls)")
 
 if __name__ == "__main__":
     main()
