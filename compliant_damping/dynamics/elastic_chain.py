@@ -15,7 +15,10 @@ spring-damper between a named frame and a plane, acting on the links through ``J
 
 The state is an (n, 4) array of rows ``[q, q', theta, theta']`` as in model.py. The fixed-step
 integrator is classical RK4 with the motor torque held over the interval and saturated at the
-driver limit.
+driver limit. Everything but the link dynamics and the contacts (springs, friction, end stops,
+the RK4 sums) runs in numba kernels on a packed parameter array when numba is installed (the
+same functions as plain Python otherwise); the link dynamics and the contacts are evaluated at
+every RK4 stage's state, as before.
 """
 from __future__ import annotations
 
@@ -23,7 +26,64 @@ from dataclasses import dataclass, fields
 
 import numpy as np
 
+from ..model import njit  # numba when installed, plain Python otherwise
+
 __all__ = ["ElasticElements", "PlaneContact", "ElasticChain"]
+
+# Rows of the kernels' packed (N_ROWS, n) array: parameters from ElasticElements, then the held
+# motor torque and the stage's q, q' and net link torque (one array: fewer arguments to dispatch).
+K, K3, DS, DQ, DTH, TC, VC, B, LOWER, UPPER, K_STOP, D_STOP, TAU_M, Q, DQ_STAGE, LINK = range(16)
+N_ROWS = 16
+
+
+@njit(cache=True)
+def _spring(p, i, phi, dphi):
+    """tau_s of joint i (N m) for the deflection phi (rad) and its rate dphi (rad/s)."""
+    return p[K, i] * phi + p[K3, i] * phi ** 3 + p[DS, i] * dphi
+
+
+@njit(cache=True)
+def _spring_torques(p, x, out):
+    """tau_s per joint (N m) of the (n, 4) state into ``out``."""
+    for i in range(x.shape[0]):
+        out[i] = _spring(p, i, x[i, 2] - x[i, 0], x[i, 3] - x[i, 1])
+
+
+@njit(cache=True)
+def _elastic_stage(p, x, k, c, tau_ext, out):
+    """Rates at the RK4 stage state ``x + c k`` (``c = 0``: ``x`` itself), all but q''.
+
+    Writes the stage's q, q' (rad, rad/s) and the net link torque without contacts (N m: spring,
+    link damping, end stops, ``tau_ext``) into rows Q, DQ_STAGE, LINK of ``p``, and the rates q',
+    theta', theta'' (motor torque from row TAU_M) into columns 0, 2, 3 of ``out``. An end stop
+    only acts once its joint is past it, so a joint within its stops costs two comparisons.
+    """
+    for i in range(x.shape[0]):
+        if c != 0.0:
+            qi, dqi, thi, dthi = (x[i, 0] + c * k[i, 0], x[i, 1] + c * k[i, 1], x[i, 2] + c * k[i, 2],
+                                  x[i, 3] + c * k[i, 3])
+        else:
+            qi, dqi, thi, dthi = x[i, 0], x[i, 1], x[i, 2], x[i, 3]
+        tau_s = _spring(p, i, thi - qi, dthi - dqi)
+        push_up = push_down = 0.0
+        if qi < p[LOWER, i]:
+            push_up = max(p[K_STOP, i] * (p[LOWER, i] - qi) - p[D_STOP, i] * dqi, 0.0)
+        if qi > p[UPPER, i]:
+            push_down = min(-p[K_STOP, i] * (qi - p[UPPER, i]) - p[D_STOP, i] * dqi, 0.0)
+        friction = p[DTH, i] * dthi + p[TC, i] * np.tanh(dthi / p[VC, i])
+        p[Q, i], p[DQ_STAGE, i] = qi, dqi
+        p[LINK, i] = tau_s - p[DQ, i] * dqi + (push_up + push_down) + tau_ext[i]
+        out[i, 0], out[i, 2] = dqi, dthi
+        out[i, 3] = (p[TAU_M, i] - tau_s - friction) / p[B, i]
+
+
+@njit(cache=True)
+def _rk4_update(x, h, k1, k2, k3, k4):
+    """x += h/6 (k1 + 2 k2 + 2 k3 + k4), in place."""
+    w = h / 6.0
+    for i in range(x.shape[0]):
+        for j in range(x.shape[1]):
+            x[i, j] += w * (k1[i, j] + 2.0 * k2[i, j] + 2.0 * k3[i, j] + k4[i, j])
 
 
 @dataclass(frozen=True)
@@ -75,75 +135,92 @@ class PlaneContact:
     stiffness: float = 1.0e5   # N/m
     damping: float = 500.0     # N s/m
 
+    def depth(self, links, q) -> float:
+        """Penetration depth (m), negative when the frame is clear of the plane."""
+        return self.height - float(np.asarray(self.normal, dtype=float) @ links.frame_position(self.frame, q))
+
+    def normal_row(self, links, q) -> np.ndarray:
+        """Normal row of the frame's linear Jacobian, n^T J (m/rad), shape (n,)."""
+        return np.asarray(self.normal, dtype=float) @ links.frame_jacobian(self.frame, q)[:3]
+
     def depth_and_jacobian(self, links, q):
         """(depth m, normal row of the frame's linear Jacobian n^T J, 1 x n)."""
-        n = np.asarray(self.normal, dtype=float)
-        depth = self.height - float(n @ links.frame_position(self.frame, q))
-        return depth, n @ links.frame_jacobian(self.frame, q)[:3]
+        return self.depth(links, q), self.normal_row(links, q)
 
     def torque(self, links, q, dq) -> np.ndarray:
-        """Joint torques of the contact force (N m), zero without penetration."""
-        depth, row = self.depth_and_jacobian(links, q)
+        """Joint torques of the contact force (N m), zero without penetration (no Jacobian then)."""
+        depth = self.depth(links, q)
         if depth <= 0.0:
             return np.zeros(len(q))
+        row = self.normal_row(links, q)
         force = max(self.stiffness * depth - self.damping * float(row @ dq), 0.0)  # d' = -n.J q'
         return row * force
 
     def energy(self, links, q) -> float:
-        depth, _ = self.depth_and_jacobian(links, q)
+        depth = self.depth(links, q)
         return 0.5 * self.stiffness * depth * depth if depth > 0.0 else 0.0
 
 
 class ElasticChain:
-    """The elastic-joint robot: link dynamics ``links``, :class:`ElasticElements`, contacts."""
+    """The elastic-joint robot: link dynamics ``links``, :class:`ElasticElements`, contacts.
+
+    Holds working arrays for its kernels, so one chain is not thread safe (as UrdfChain).
+    """
 
     def __init__(self, links, elements: ElasticElements, contacts=()):
         self.links, self.e, self.contacts = links, elements, tuple(contacts)
-        self.n = len(elements.motor_inertia)
+        self.n = n = len(elements.motor_inertia)
+        e = elements
+        rows = {K: e.spring_stiffness, K3: e.spring_cubic, DS: e.spring_damping, DQ: e.link_viscous,
+                DTH: e.motor_viscous, TC: e.motor_coulomb, VC: e.coulomb_speed, B: e.motor_inertia,
+                LOWER: e.stop_lower, UPPER: e.stop_upper, K_STOP: e.stop_stiffness, D_STOP: e.stop_damping}
+        self._p = np.zeros((N_ROWS, n))
+        for r, value in rows.items():
+            self._p[r] = value
+        self._stage_q, self._stage_dq, self._stage_link = self._p[Q], self._p[DQ_STAGE], self._p[LINK]  # views
+        self._k = np.zeros((4, n, 4))  # the RK4 stages' rates
 
     def spring_torque(self, x: np.ndarray) -> np.ndarray:
         """tau_s per joint (N m) for the (n, 4) state."""
-        e = self.e
-        phi = x[:, 2] - x[:, 0]
-        return e.spring_stiffness * phi + e.spring_cubic * phi ** 3 + e.spring_damping * (x[:, 3] - x[:, 1])
+        out = np.empty(self.n)
+        _spring_torques(self._p, np.ascontiguousarray(x, dtype=float), out)
+        return out
 
-    def _stop_torque(self, q, dq):
-        e = self.e
-        below, above = np.maximum(e.stop_lower - q, 0.0), np.maximum(q - e.stop_upper, 0.0)
-        push_up = np.where(below > 0.0, np.maximum(e.stop_stiffness * below - e.stop_damping * dq, 0.0), 0.0)
-        push_down = np.where(above > 0.0, np.minimum(-e.stop_stiffness * above - e.stop_damping * dq, 0.0), 0.0)
-        return push_up + push_down
+    def _stage(self, x, k, c: float, tau_ext, out) -> None:
+        """Rates at the state ``x + c k`` into ``out`` for the motor torque in row TAU_M: elastic
+        kernel, contacts, then the links' q''."""
+        _elastic_stage(self._p, x, k, c, np.asarray(tau_ext, dtype=float), out)
+        q, dq, link = self._stage_q, self._stage_dq, self._stage_link
+        for contact in self.contacts:
+            link += contact.torque(self.links, q, dq)
+        out[:, 1] = self.links.forward_trusted(q, dq, link)
 
     def rates(self, x: np.ndarray, tau_m: np.ndarray, tau_ext: np.ndarray) -> np.ndarray:
         """Time derivative of the (n, 4) state for held motor torques ``tau_m`` and link torques ``tau_ext``."""
-        e = self.e
-        q, dq, dth = x[:, 0], x[:, 1], x[:, 3]
-        tau_s = self.spring_torque(x)
-        link = tau_s - e.link_viscous * dq + self._stop_torque(q, dq) + tau_ext
-        for contact in self.contacts:
-            link = link + contact.torque(self.links, q, dq)
-        friction = e.motor_viscous * dth + e.motor_coulomb * np.tanh(dth / e.coulomb_speed)
+        x = np.ascontiguousarray(x, dtype=float)
         out = np.empty_like(x)
-        out[:, 0], out[:, 2] = dq, dth
-        out[:, 1] = self.links.forward(q, dq, link)
-        out[:, 3] = (tau_m - tau_s - friction) / e.motor_inertia
+        self._p[TAU_M] = tau_m
+        self._stage(x, x, 0.0, tau_ext, out)
         return out
 
     def advance(self, x: np.ndarray, tau_m, external, t0: float, h: float, steps: int) -> np.ndarray:
-        """Advance ``x`` in place by ``steps`` RK4 steps of ``h`` s from ``t0``; returns the applied torques.
+        """Advance ``x`` (C-ordered floats) in place by ``steps`` RK4 steps of ``h`` s from ``t0``;
+        returns the applied torques.
 
         ``external(t)`` gives the scripted link torques (N m, length n) at time t.
         """
         lim = self.e.driver_torque_limit
         tau = np.clip(np.asarray(tau_m, dtype=float), -lim, lim)
+        self._p[TAU_M] = tau
+        k1, k2, k3, k4 = self._k
         for i in range(steps):
             t = t0 + i * h
             mid = external(t + 0.5 * h)
-            k1 = self.rates(x, tau, external(t))
-            k2 = self.rates(x + 0.5 * h * k1, tau, mid)
-            k3 = self.rates(x + 0.5 * h * k2, tau, mid)
-            k4 = self.rates(x + h * k3, tau, external(t + h))
-            x += h / 6.0 * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
+            self._stage(x, x, 0.0, external(t), k1)
+            self._stage(x, k1, 0.5 * h, mid, k2)
+            self._stage(x, k2, 0.5 * h, mid, k3)
+            self._stage(x, k3, h, external(t + h), k4)
+            _rk4_update(x, h, k1, k2, k3, k4)
         return tau
 
     def energy(self, x: np.ndarray) -> float:

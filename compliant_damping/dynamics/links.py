@@ -98,6 +98,11 @@ class LinkDynamics(ABC):
     def forward(self, q, dq, tau) -> np.ndarray:
         """Forward dynamics: q'' (rad/s^2) solving M q'' + c + g = tau (N m), shape (n,)."""
 
+    def forward_trusted(self, q: np.ndarray, dq: np.ndarray, tau: np.ndarray) -> np.ndarray:
+        """:meth:`forward` for callers that already hold float arrays of shape (n,) (a simulator's
+        inner loop): the same q'' (rad/s^2), with no conversion or shape check of the inputs."""
+        return self.forward(q, dq, tau)
+
     @abstractmethod
     def inverse(self, q, dq, ddq) -> np.ndarray:
         """Inverse dynamics: tau = M q'' + c + g (N m) for the acceleration ``ddq`` (rad/s^2)."""

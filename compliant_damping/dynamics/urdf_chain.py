@@ -131,6 +131,7 @@ class UrdfChain(LinkDynamics):
         self._data = model.createData()
         self._perm = np.array([model.joints[jid].idx_v for jid in ids])
         self._square = np.ix_(self._perm, self._perm)
+        self._identity = bool(np.array_equal(self._perm, np.arange(len(names))))
         self._q = np.zeros(model.nq)   # working copies in Pinocchio's order (no per-call allocation)
         self._v = np.zeros(model.nv)
         self._w = np.zeros(model.nv)
@@ -188,6 +189,12 @@ class UrdfChain(LinkDynamics):
 
     def forward(self, q, dq, tau) -> np.ndarray:
         self._load(q, dq, tau)
+        return self._pin.aba(self._model, self._data, self._q, self._v, self._w)[self._perm]
+
+    def forward_trusted(self, q: np.ndarray, dq: np.ndarray, tau: np.ndarray) -> np.ndarray:
+        if self._identity:  # names in Pinocchio's order: no copies into the working vectors
+            return self._pin.aba(self._model, self._data, q, dq, tau)
+        self._q[self._perm], self._v[self._perm], self._w[self._perm] = q, dq, tau
         return self._pin.aba(self._model, self._data, self._q, self._v, self._w)[self._perm]
 
     def inverse(self, q, dq, ddq) -> np.ndarray:
