@@ -122,11 +122,13 @@ class ElasticElements:
 
 @dataclass(frozen=True)
 class PlaneContact:
-    """Push-only spring-damper between frame ``frame`` and the plane ``normal . p = height`` (m).
+    """Push-only spring-damper between frame ``frame`` and the plane ``normal . p = h(t)`` (m).
 
-    The frame penetrates when ``normal . p < height``; the normal force
-    ``f = max(stiffness d + damping d', 0)`` with depth ``d = height - normal . p`` only pushes
-    (the damper resists the penetration speed d' = -normal . v, as the end stops' does).
+    The frame penetrates when ``normal . p < h(t)``; the normal force
+    ``f = max(stiffness d + damping d', 0)`` with depth ``d = h(t) - normal . p`` only pushes
+    (the damper resists the penetration speed ``d' = h'(t) - normal . v``, as the end stops' does).
+    The plane may move along its normal: ``h(t) = height + speed * clip(t - start_time, 0,
+    rise_time)``, a floor rising into a foot (speed > 0) for ``rise_time`` s, then at rest.
     """
 
     frame: str
@@ -134,30 +136,42 @@ class PlaneContact:
     normal: tuple = (0.0, 0.0, 1.0)
     stiffness: float = 1.0e5   # N/m
     damping: float = 500.0     # N s/m
+    speed: float = 0.0         # m/s along the normal while moving
+    start_time: float = 0.0    # s
+    rise_time: float = 0.0     # s of motion (0: the plane stays at ``height``)
 
-    def depth(self, links, q) -> float:
-        """Penetration depth (m), negative when the frame is clear of the plane."""
-        return self.height - float(np.asarray(self.normal, dtype=float) @ links.frame_position(self.frame, q))
+    def height_at(self, t: float) -> float:
+        """Plane height h(t) (m)."""
+        return self.height + self.speed * min(max(t - self.start_time, 0.0), self.rise_time)
+
+    def speed_at(self, t: float) -> float:
+        """Plane speed h'(t) (m/s)."""
+        return self.speed if self.start_time <= t < self.start_time + self.rise_time else 0.0
+
+    def depth(self, links, q, t: float = 0.0) -> float:
+        """Penetration depth (m) at time ``t`` (s), negative when the frame is clear of the plane."""
+        return self.height_at(t) - float(np.asarray(self.normal, dtype=float) @ links.frame_position(self.frame, q))
 
     def normal_row(self, links, q) -> np.ndarray:
         """Normal row of the frame's linear Jacobian, n^T J (m/rad), shape (n,)."""
         return np.asarray(self.normal, dtype=float) @ links.frame_jacobian(self.frame, q)[:3]
 
-    def depth_and_jacobian(self, links, q):
+    def depth_and_jacobian(self, links, q, t: float = 0.0):
         """(depth m, normal row of the frame's linear Jacobian n^T J, 1 x n)."""
-        return self.depth(links, q), self.normal_row(links, q)
+        return self.depth(links, q, t), self.normal_row(links, q)
 
-    def torque(self, links, q, dq) -> np.ndarray:
-        """Joint torques of the contact force (N m), zero without penetration (no Jacobian then)."""
-        depth = self.depth(links, q)
+    def torque(self, links, q, dq, t: float = 0.0) -> np.ndarray:
+        """Joint torques of the contact force (N m) at time ``t`` (s), zero without penetration
+        (no Jacobian then)."""
+        depth = self.depth(links, q, t)
         if depth <= 0.0:
             return np.zeros(len(q))
         row = self.normal_row(links, q)
-        force = max(self.stiffness * depth - self.damping * float(row @ dq), 0.0)  # d' = -n.J q'
+        force = max(self.stiffness * depth + self.damping * (self.speed_at(t) - float(row @ dq)), 0.0)
         return row * force
 
-    def energy(self, links, q) -> float:
-        depth = self.depth(links, q)
+    def energy(self, links, q, t: float = 0.0) -> float:
+        depth = self.depth(links, q, t)
         return 0.5 * self.stiffness * depth * depth if depth > 0.0 else 0.0
 
 
@@ -186,21 +200,22 @@ class ElasticChain:
         _spring_torques(self._p, np.ascontiguousarray(x, dtype=float), out)
         return out
 
-    def _stage(self, x, k, c: float, tau_ext, out) -> None:
-        """Rates at the state ``x + c k`` into ``out`` for the motor torque in row TAU_M: elastic
-        kernel, contacts, then the links' q''."""
+    def _stage(self, x, k, c: float, tau_ext, t: float, out) -> None:
+        """Rates at the state ``x + c k`` and time ``t`` (s) into ``out`` for the motor torque in
+        row TAU_M: elastic kernel, contacts, then the links' q''."""
         _elastic_stage(self._p, x, k, c, np.asarray(tau_ext, dtype=float), out)
         q, dq, link = self._stage_q, self._stage_dq, self._stage_link
         for contact in self.contacts:
-            link += contact.torque(self.links, q, dq)
+            link += contact.torque(self.links, q, dq, t)
         out[:, 1] = self.links.forward_trusted(q, dq, link)
 
-    def rates(self, x: np.ndarray, tau_m: np.ndarray, tau_ext: np.ndarray) -> np.ndarray:
-        """Time derivative of the (n, 4) state for held motor torques ``tau_m`` and link torques ``tau_ext``."""
+    def rates(self, x: np.ndarray, tau_m: np.ndarray, tau_ext: np.ndarray, t: float = 0.0) -> np.ndarray:
+        """Time derivative of the (n, 4) state at time ``t`` (s, for moving contacts) for held motor
+        torques ``tau_m`` and link torques ``tau_ext``."""
         x = np.ascontiguousarray(x, dtype=float)
         out = np.empty_like(x)
         self._p[TAU_M] = tau_m
-        self._stage(x, x, 0.0, tau_ext, out)
+        self._stage(x, x, 0.0, tau_ext, t, out)
         return out
 
     def advance(self, x: np.ndarray, tau_m, external, t0: float, h: float, steps: int) -> np.ndarray:
@@ -216,15 +231,16 @@ class ElasticChain:
         for i in range(steps):
             t = t0 + i * h
             mid = external(t + 0.5 * h)
-            self._stage(x, x, 0.0, external(t), k1)
-            self._stage(x, k1, 0.5 * h, mid, k2)
-            self._stage(x, k2, 0.5 * h, mid, k3)
-            self._stage(x, k3, h, external(t + h), k4)
+            self._stage(x, x, 0.0, external(t), t, k1)
+            self._stage(x, k1, 0.5 * h, mid, t + 0.5 * h, k2)
+            self._stage(x, k2, 0.5 * h, mid, t + 0.5 * h, k3)
+            self._stage(x, k3, h, external(t + h), t + h, k4)
             _rk4_update(x, h, k1, k2, k3, k4)
         return tau
 
-    def energy(self, x: np.ndarray) -> float:
-        """Stored energy (J): link kinetic and potential, motor kinetic, springs, end stops, contacts."""
+    def energy(self, x: np.ndarray, t: float = 0.0) -> float:
+        """Stored energy (J) at time ``t`` (s): link kinetic and potential, motor kinetic, springs,
+        end stops, contacts."""
         e = self.e
         q, dq, dth = x[:, 0], x[:, 1], x[:, 3]
         phi = x[:, 2] - q
@@ -232,4 +248,4 @@ class ElasticChain:
         total = (self.links.kinetic_energy(q, dq) + self.links.potential_energy(q)
                  + float(np.sum(0.5 * e.motor_inertia * dth ** 2 + 0.5 * e.spring_stiffness * phi ** 2
                                 + 0.25 * e.spring_cubic * phi ** 4 + 0.5 * e.stop_stiffness * pen ** 2)))
-        return total + sum(c.energy(self.links, q) for c in self.contacts)
+        return total + sum(c.energy(self.links, q, t) for c in self.contacts)
