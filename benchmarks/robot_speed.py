@@ -106,9 +106,10 @@ def main() -> None:
     duration = 1.0
     robot = Timed(RobotController("decoupled_damper", nominal, [KNEE.gains] * 3, [dataclasses.replace(
         KNEE.limits, position_lower=-2.0, position_upper=2.0)] * 3, ["h", "k", "a"], period=1e-3), "step")
-    simulate_robot(plant, robot, [Constant(float(q)) for q in q0], x0, 0.05, 1e-3, 10)  # warm-up (numba, caches)
+    hold = scenarios.Scenario("hold", duration, x0, tuple(Constant(float(q)) for q in q0), np.zeros((0, 4)))
+    simulate_robot(plant, robot, hold, 0.05, 1e-3, 10)  # warm-up (numba, caches)
     plant.spent = robot.spent = 0.0
-    run = simulate_robot(plant, robot, [Constant(float(q)) for q in q0], x0, duration, 1e-3, 10)
+    run = simulate_robot(plant, robot, hold, duration, 1e-3, 10)
     ctrl = dataclasses.replace(CTRL, law="decoupled_damper")
     simulate.simulate(SIM.joints, controller.bank(ctrl), scenarios.make("free_oscillation", SIM.joints), 0.1)  # warm-up
     one = simulate.simulate(SIM.joints, controller.bank(ctrl), scenarios.make("free_oscillation", SIM.joints),

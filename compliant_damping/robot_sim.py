@@ -1,42 +1,63 @@
 """Fixed-step closed loop of a robot with coupled links: elastic chain plant + robot controller.
 
 The counterpart of simulate.simulate for dynamics.elastic_chain.ElasticChain and
-controller.RobotController: the controller ticks every ``control_dt`` s on the readings, its
-torques are held over the tick while the plant takes ``substeps`` RK4 steps. Readings are the
-true state (ideal sensors). The result is the same simulate.SimResult every command uses.
+controller.RobotController: the controller ticks every ``control_dt`` s on the sensor readings,
+its torques are held over the tick while the plant takes ``substeps`` RK4 steps. The result is
+the same simulate.SimResult every command uses.
 """
 from __future__ import annotations
 
 import time
+from dataclasses import dataclass
 
 import numpy as np
 
+from .dynamics.elastic_chain import ElasticChain, ElasticElements
 from .sample import JointSample, Reference
+from .sensors import SensorChannel
 from .simulate import SimResult
 
-__all__ = ["simulate_robot"]
+__all__ = ["Touchdown", "robot_plant", "scripted_torques", "simulate_robot", "touchdown"]
 
 
-def simulate_robot(plant, controller, references, x0: np.ndarray, duration: float, control_dt: float = 1e-3,
-                   substeps: int = 10, external=None, joint_names=None) -> SimResult:
-    """Run the closed loop for ``duration`` s from the (n, 4) state ``x0``.
+def robot_plant(sim, scenario=None) -> ElasticChain:
+    """The simulated robot of a config.SimSetup with the contacts of ``scenario`` (default: the file's floor)."""
+    contacts = scenario.contacts if scenario is not None else (() if sim.contact is None else (sim.contact,))
+    return ElasticChain(sim.links, ElasticElements.from_joint_params([j.plant for j in sim.joints]), contacts)
+
+
+def scripted_torques(rows: np.ndarray, n: int):
+    """``external(t)``: link torques (N m, length n) of scenario rows ``[joint, t_on, t_off, torque]``, on [t_on, t_off)."""
+    rows = np.asarray(rows, dtype=float).reshape(-1, 4)
+    joints = rows[:, 0].astype(int)
+
+    def external(t: float) -> np.ndarray:
+        on = (rows[:, 1] <= t) & (t < rows[:, 2])
+        return np.bincount(joints[on], weights=rows[on, 3], minlength=n).astype(float)
+    return external
+
+
+def simulate_robot(plant, controller, scenario, duration: float | None = None, control_dt: float = 1e-3,
+                   substeps: int = 10, sensors=None, joint_names=None) -> SimResult:
+    """Run ``scenario`` for ``duration`` s (default: the scenario's) and return the time series.
 
     Parameters
     ----------
     plant : dynamics.elastic_chain.ElasticChain
+        With the scenario's contacts (:func:`robot_plant`).
     controller : controller.RobotController
-    references : sequence
-        One reference per joint (references.py: ``sample(t)`` gives q_d, q_d', q_d'').
-    x0 : ndarray, shape (n, 4)
-        Initial ``[q, q', theta, theta']`` per joint (rad, rad/s).
-    external : callable, optional
-        ``external(t)`` scripted link torques (N m, length n); none by default.
+    scenario : scenarios.Scenario
+        Start state, one reference per joint, scripted link torques.
+    sensors : sequence of model.SensorParams, optional
+        Per joint (config.SimJoint.sensor), seeded 0; ideal sensors (the true state) by default.
     """
+    duration = scenario.duration if duration is None else duration
     n = plant.n
-    zeros = np.zeros(n)
-    external = external or (lambda t: zeros)
+    rng = np.random.default_rng(0)
+    reads = None if sensors is None else [SensorChannel(p, control_dt, rng).read for p in sensors]
+    external = scripted_torques(scenario.external, n)
     names = list(joint_names or controller.joint_names)
-    x = np.array(x0, dtype=float)
+    x = np.array(scenario.initial, dtype=float)
     ticks = int(round(duration / control_dt))
     states, tau_m, tau_s_out = np.empty((ticks, n, 4)), np.empty((ticks, n)), np.empty((ticks, n))
     h = control_dt / substeps
@@ -45,8 +66,11 @@ def simulate_robot(plant, controller, references, x0: np.ndarray, duration: floa
         t = i * control_dt
         states[i] = x
         tau_s = plant.spring_torque(x)
-        readings = [JointSample(*x[j], tau_s[j]) for j in range(n)]
-        ref = Reference(*(np.array(column) for column in zip(*(r.sample(t) for r in references))))
+        if reads is None:
+            readings = [JointSample(*x[j], tau_s[j]) for j in range(n)]
+        else:
+            readings = [read(*x[j], tau_s[j]) for j, read in enumerate(reads)]
+        ref = Reference(*(np.array(column) for column in zip(*(r.sample(t) for r in scenario.references))))
         tau = controller.step(readings, ref, t, control_dt)
         tau_m[i] = plant.advance(x, tau, external, t, h, substeps)
         tau_s_out[i] = tau_s
@@ -54,3 +78,20 @@ def simulate_robot(plant, controller, references, x0: np.ndarray, duration: floa
     q, dq, theta, dtheta = (np.ascontiguousarray(states[:, :, c]) for c in range(4))
     return SimResult(names, np.arange(ticks) * control_dt, q, dq, theta, dtheta, tau_m, tau_s_out,
                      faults=controller.faults, control_dt=control_dt, wall_time=wall)
+
+
+@dataclass(frozen=True)
+class Touchdown:
+    """First control tick at which a contact's frame is inside its plane."""
+
+    time: float   # s
+    speed: float  # m/s: approach speed h'(t) - n . v of the frame towards the plane
+
+
+def touchdown(result: SimResult, links, contact) -> Touchdown | None:
+    """When and how fast ``contact``'s frame first met its plane in ``result``; None if it never did."""
+    for i, t in enumerate(result.t):
+        q = result.q[i]
+        if contact.depth(links, q, t) > 0.0:
+            return Touchdown(float(t), contact.speed_at(t) - float(contact.normal_row(links, q) @ result.dq[i]))
+    return None

@@ -13,56 +13,123 @@ for any parameter file:
                       rest-to-rest move was tried too: its link speed at the stop depended on each
                       law's lag, 0.3 to 1.4 rad/s, which made the comparison unfair.)
 ``external_impulse``  hold the initial position; a short torque pulse hits the link at 0.2 s.
+``foot_landing``      hold the initial position while the floor of the parameter file's contact
+                      (a URDF frame on a plane) rises into the frame: it starts ``gap`` below the
+                      frame at 0.05 s and moves up at ``landing_speed`` until ``travel`` past
+                      touchdown, then stays. A moving floor gives every law the same landing
+                      speed, as a drop test rig does, so their impact torques compare fairly.
 """
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
 import numpy as np
 
-from .model import equilibrium_motor_position, pack
+from .dynamics.links import IndependentLinks
 from .references import Constant, Cruise, Step
 
-SCENARIOS = ("free_oscillation", "setpoint_step", "end_stop_impact", "external_impulse")
+__all__ = ["SCENARIOS", "Scenario", "make"]
+
+SCENARIOS = ("free_oscillation", "setpoint_step", "end_stop_impact", "external_impulse", "foot_landing")
+LANDING_START = 0.05  # s: the floor starts to rise
 
 
 @dataclass(frozen=True)
 class Scenario:
+    """A run to simulate: start state, link references, scripted torques and the floor.
+
+    Attributes
+    ----------
+    name : str
+    duration : float
+        Default run length (s).
+    initial : ndarray, shape (n, 4)
+        ``[q, q', theta, theta']`` per joint (rad, rad/s).
+    references : tuple
+        One reference object per joint (see references.py).
+    external : ndarray, shape (m, 4)
+        Scripted link torques, rows ``[joint, t_on, t_off, torque]`` applied on [t_on, t_off) (N m).
+    step : tuple or None
+        (time s, size rad) of a set-point step, for step-response metrics.
+    contacts : tuple
+        dynamics.elastic_chain.PlaneContact of the run (the file's floor; moving in foot_landing).
+    """
+
     name: str
-    duration: float          # s, default run length
-    initial: np.ndarray      # (n, 4) [q, q', theta, theta'] per joint
-    references: tuple        # one reference object per joint (see references.py)
-    external: np.ndarray     # (m, 4) rows [joint, t_on, t_off, torque] (model.advance)
-    step: tuple | None = None  # (time s, size rad) of a set-point step, for step-response metrics
+    duration: float
+    initial: np.ndarray
+    references: tuple
+    external: np.ndarray
+    step: tuple | None = None
+    contacts: tuple = ()
 
 
-def make(name: str, sim_joints, *, step: float = 0.05, deflection: float = 0.02,
+def _spring_deflection(plant, torque: float) -> float:
+    """Deflection phi (rad) at which the spring k phi + k3 phi^3 carries ``torque`` (N m)."""
+    k, k3 = plant.spring_stiffness, plant.spring_cubic
+    if k3 == 0.0:
+        return torque / k
+    roots = np.roots([k3, 0.0, k, -torque])  # one real root: k, k3 > 0 make the cubic monotonic
+    return float(roots[np.argmin(np.abs(roots.imag))].real)
+
+
+def make(name: str, sim_joints, *, links=None, floor=None, step: float = 0.05, deflection: float = 0.02,
          impulse: float = 0.5, impulse_width: float = 0.005, overshoot: float = 0.05,
-         impact_speed: float = 1.0) -> Scenario:
+         impact_speed: float = 1.0, landing_speed: float = 0.35, gap: float = 0.02,
+         travel: float = 0.03) -> Scenario:
     """Scenario ``name`` for the simulated joints (config.SimJoint) of a parameter file.
 
-    step: set-point step (rad); deflection: initial spring deflection (rad);
-    impulse: external impulse on the link (N m s) spread over ``impulse_width`` (s);
-    overshoot: how far the end_stop_impact reference rests beyond the upper stop (rad);
-    impact_speed: its cruising speed into the stop (rad/s).
+    Parameters
+    ----------
+    sim_joints : sequence of config.SimJoint
+    links : dynamics.links.LinkDynamics, optional
+        The simulated robot's links (config.SimSetup.links); default: the joints' own pendulums.
+        The start state holds them still against gravity.
+    floor : dynamics.elastic_chain.PlaneContact, optional
+        The parameter file's floor (config.SimSetup.contact); foot_landing needs one.
+    step : float
+        Set-point step (rad).
+    deflection : float
+        Initial spring deflection of free_oscillation (rad).
+    impulse, impulse_width : float
+        External impulse on each link (N m s) spread over ``impulse_width`` (s).
+    overshoot, impact_speed : float
+        How far the end_stop_impact reference rests beyond the upper stop (rad), and its
+        cruising speed into the stop (rad/s).
+    landing_speed, gap, travel : float
+        foot_landing: floor speed (m/s), its start below the frame (m) and how far it moves
+        past touchdown (m).
     """
     if name not in SCENARIOS:
         raise ValueError(f"scenario: unknown {name!r}; choose one of {', '.join(SCENARIOS)}")
-    params = pack([j.plant for j in sim_joints])
     n = len(sim_joints)
     q0 = np.array([j.initial_position for j in sim_joints])
+    if links is None:
+        links = IndependentLinks.from_params([j.name for j in sim_joints], [j.plant for j in sim_joints])
+    holding = links.gravity(q0)
     initial = np.zeros((n, 4))
     initial[:, 0] = q0
-    initial[:, 2] = [equilibrium_motor_position(params[i], q0[i]) for i in range(n)]
+    initial[:, 2] = q0 + [_spring_deflection(j.plant, float(g)) for j, g in zip(sim_joints, holding)]
     external = np.zeros((0, 4))
     hold = tuple(Constant(float(q)) for q in q0)
+    contacts = () if floor is None else (floor,)
     if name == "free_oscillation":
         initial[:, 2] += deflection
-        return Scenario(name, 2.0, initial, hold, external)
+        return Scenario(name, 2.0, initial, hold, external, contacts=contacts)
     if name == "setpoint_step":
         return Scenario(name, 2.0, initial, tuple(Step(float(q), float(q) + step, 0.1) for q in q0),
-                        external, step=(0.1, step))
+                        external, step=(0.1, step), contacts=contacts)
+    if name == "foot_landing":
+        if floor is None:
+            raise ValueError("contact.frame: foot_landing needs a floor contact on a URDF frame")
+        if not landing_speed > 0.0:
+            raise ValueError(f"landing_speed: must be positive, got {landing_speed} m/s")
+        height = float(np.asarray(floor.normal) @ links.frame_position(floor.frame, q0))
+        moving = dataclasses.replace(floor, height=height - gap, speed=landing_speed, start_time=LANDING_START,
+                                     rise_time=(gap + travel) / landing_speed)
+        return Scenario(name, 2.5, initial, hold, external, contacts=(moving,))
     if name == "end_stop_impact":
         refs = []
         for j in sim_joints:
@@ -72,6 +139,6 @@ def make(name: str, sim_joints, *, step: float = 0.05, deflection: float = 0.02,
             # speed blends of 2 overshoot / speed: braking starts as the reference passes the stop
             refs.append(Cruise(j.initial_position, upper + overshoot, impact_speed,
                                2.0 * overshoot / impact_speed, 0.1))
-        return Scenario(name, 2.0, initial, tuple(refs), external)
+        return Scenario(name, 2.0, initial, tuple(refs), external, contacts=contacts)
     rows = [[i, 0.2, 0.2 + impulse_width, impulse / impulse_width] for i in range(n)]
-    return Scenario(name, 1.5, initial, hold, np.array(rows, dtype=float))
+    return Scenario(name, 1.5, initial, hold, np.array(rows, dtype=float), contacts=contacts)

@@ -45,7 +45,7 @@ def test_pendulum_urdf_robot_equals_the_bench_joint(law):
     robot = controller.RobotController(law, nominal, [joint.gains], [joint.limits], ["knee"], ctrl.safe_mode,
                                        period=DT)
     plant = ElasticChain(links, ElasticElements.from_joint_params([SIM.joints[0].plant]))
-    run = simulate_robot(plant, robot, scenario.references, scenario.initial, DURATION, DT, SIM.substeps)
+    run = simulate_robot(plant, robot, scenario, DURATION, DT, SIM.substeps)
     if law != "zero":
         assert np.max(bench.q) > SIM.joints[0].plant.stop_upper  # the impact is in the window
     err_q = np.max(np.abs(run.q - bench.q))
@@ -118,7 +118,7 @@ def test_robot_law_switches_and_gain_ramps_equal_the_bench_joints():
     robot = Scripted(controller.RobotController("motor_pd", nominal, [joint.gains], [joint.limits], ["knee"],
                                                 CTRL.safe_mode, period=DT), _events(True))
     plant = ElasticChain(links, ElasticElements.from_joint_params([SIM.joints[0].plant]))
-    run = simulate_robot(plant, robot, scenario.references, scenario.initial, 1.0, DT, SIM.substeps)
+    run = simulate_robot(plant, robot, scenario, 1.0, DT, SIM.substeps)
     assert robot.marks == [200, 300, 600, 750] and run.faults == [None] and bench.faults == [None]
     assert np.max(np.abs(run.tau_m - bench.tau_m)) < 1e-8
     assert np.max(np.abs(run.q - bench.q)) < 1e-10
@@ -136,7 +136,8 @@ def test_coupled_robot_law_switch_while_moving_is_bumpless():
     q0 = np.array([0.4, -0.3])
     x0 = np.stack([q0, np.zeros(2), q0 + links.gravity(q0) / nominal.spring_stiffness, np.zeros(2)], axis=1)
     refs = [Step(0.4, 0.0, 0.05), Step(-0.3, 0.2, 0.05)]
-    run = simulate_robot(plant, robot, refs, x0, 0.6, DT, 10)
+    run = simulate_robot(plant, robot, scenarios.Scenario("switches", 0.6, x0, tuple(refs), np.zeros((0, 4))),
+                         control_dt=DT)
     assert run.faults == [None, None]
     steps = np.abs(np.diff(run.tau_m, axis=0))
     assert np.max(steps) <= 1e4 * DT * (1 + 1e-12)  # the slew contract on every joint, every tick
