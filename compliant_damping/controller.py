@@ -1,4 +1,7 @@
-"""One joint's controller: the chosen law, then the safety filter. Nothing else sends torque.
+"""The controllers: the chosen law, then the safety filter. Nothing else sends torque.
+
+JointController runs one joint on its own (the built-in bench joints); RobotController runs
+every joint of a robot with coupled links at once, a safety filter per joint.
 
 Used tick by tick by the offline simulator and the ROS controller node alike. Times are the
 stamp times of the readings (s): the safety filter makes them monotonic for the slew limit.
@@ -10,11 +13,11 @@ from dataclasses import fields
 
 import numpy as np
 
-from .laws import Gains, LawRunner, NominalModel, check_gains, make_law
+from .laws import ChainNominal, Gains, LawRunner, NominalModel, check_gains, make_law
 from .safety import Fault, FaultCode, Limits, SafetyFilter, motor_accel_bound
 from .sample import JointSample, Reference
 
-__all__ = ["JointController", "RobotController", "blend_gains", "bank", "stack_gains"]
+__all__ = ["JointController", "RobotController", "bank", "blend_gains", "chain_nominal", "robot", "stack_gains"]
 
 
 def blend_gains(old: Gains, new: Gains, w: float, motor_inertia) -> Gains:
@@ -293,3 +296,17 @@ class RobotController(_ScheduledLaw):
 def stack_gains(gains) -> Gains:
     """Per-joint Gains as one Gains of arrays (joint order)."""
     return Gains(**{f.name: np.array([getattr(g, f.name) for g in gains], dtype=float) for f in fields(Gains)})
+
+
+def chain_nominal(setup) -> ChainNominal:
+    """The controller's model of the whole robot of a :class:`config.ControllerSetup`: its links
+    (the nominal URDF, or the built-in joints) with each joint's motor inertia and spring."""
+    return ChainNominal(setup.links, np.array([j.model.motor_inertia for j in setup.joints], dtype=float),
+                        np.array([j.model.spring_stiffness for j in setup.joints], dtype=float))
+
+
+def robot(setup) -> RobotController:
+    """One RobotController for every joint of a :class:`config.ControllerSetup`."""
+    return RobotController(setup.law, chain_nominal(setup), [j.gains for j in setup.joints],
+                           [j.limits for j in setup.joints], setup.joint_names, setup.safe_mode,
+                           setup.spring_torque_source == "effort", 1.0 / setup.control_rate)

@@ -23,7 +23,7 @@ from scipy import optimize
 from .analysis import AnalysisError, central_jacobian
 from .sample import JointSample, Reference
 
-__all__ = ["RobotLinearModel", "RobotMode", "linearize_robot", "robot_modes"]
+__all__ = ["RobotLinearModel", "RobotMode", "linearize_robot", "rendered_link_stiffness", "robot_modes"]
 
 
 @dataclass(frozen=True)
@@ -114,3 +114,19 @@ def robot_modes(lin: RobotLinearModel, tol: float = 1e-9) -> tuple:
         modes.append(RobotMode(complex(p.real, abs(p.imag)), float(wn), float(-p.real / wn) if wn > 0 else 1.0,
                                link / norm if norm > 0 else np.zeros(n)))
     return tuple(sorted(modes, key=lambda m: m.natural_frequency))
+
+
+def rendered_link_stiffness(lin: RobotLinearModel) -> np.ndarray:
+    """Static link stiffness matrix the closed loop renders at its equilibrium (N m/rad), (n, n).
+
+    A constant external link torque ``u`` moves the equilibrium by ``dx = -a^-1 b u``; its link
+    part is ``dq = -C a^-1 b u`` (C picks q), so the stiffness is ``K_r = -(C a^-1 b)^-1``: the
+    matrix analogue of analysis.py's static link stiffness ``1 / G(0)``. Raises AnalysisError when
+    ``a`` is singular (a link that drifts has no static stiffness).
+    """
+    n = lin.joints
+    try:
+        compliance = -np.linalg.solve(lin.a, lin.b)[:n]
+        return np.linalg.inv(compliance)
+    except np.linalg.LinAlgError as err:
+        raise AnalysisError(f"no static link stiffness: the linearised loop is singular ({err})") from None

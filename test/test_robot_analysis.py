@@ -21,7 +21,7 @@ from compliant_damping.controller import stack_gains  # noqa: E402
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements  # noqa: E402
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf  # noqa: E402
 from compliant_damping.laws import LAW_NAMES, ChainNominal, Gains, make_law  # noqa: E402
-from compliant_damping.robot_analysis import linearize_robot, robot_modes  # noqa: E402
+from compliant_damping.robot_analysis import linearize_robot, rendered_link_stiffness, robot_modes  # noqa: E402
 
 CTRL, SIM = config.load(config.bundled())
 
@@ -67,3 +67,21 @@ def test_pendulum_urdf_poles_equal_the_bench_analysis(law):
     lin = linearize_robot(chain, make_law(law, nominal, stack_gains([gains])), np.array([0.2]))
     bench = analysis.analyze(plant_params, make_law(law, joint.model, gains), 0.2)
     np.testing.assert_allclose(_sorted(eigvals(lin.a)), _sorted(bench.poles), rtol=1e-6)
+
+
+def test_two_link_arm_motor_pd_renders_series_springs_plus_the_gravity_slope():
+    """Reference: per joint the motor's PD spring K_theta in series with the joint spring K,
+    K K_theta / (K + K_theta) (handbook series-spring formula, as test_analysis.py's one-joint
+    check), plus the gravity stiffness dg/dq(q_d) of the coupled links in parallel (statics of
+    M q'' + c + g = tau: the gravity torque's slope adds to the restoring stiffness)."""
+    links = UrdfChain.from_file(bundled_urdf("two_link_arm.urdf"), ["shoulder", "elbow"])
+    B, K = np.array([0.2, 0.1]), np.array([400.0, 250.0])
+    k_theta = np.array([300.0, 200.0])
+    gains = stack_gains([Gains(motor_stiffness=300.0, motor_damping=8.0), Gains(motor_stiffness=200.0, motor_damping=5.0)])
+    q_d = np.array([0.4, -0.3])
+    lin = linearize_robot(ElasticChain(links, ElasticElements.lossless(B, K)),
+                          make_law("motor_pd", ChainNominal(links, B, K), gains), q_d)
+    want = np.diag(K * k_theta / (K + k_theta)) + links.gravity_jacobian(q_d)
+    got = rendered_link_stiffness(lin)
+    print(f"rendered link stiffness\n{got}\nwant\n{want}")
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-6 * np.max(np.abs(want)))
