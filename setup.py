@@ -14,6 +14,7 @@ setup(
         (f"share/{PACKAGE}", ["package.xml"]),
         (f"share/{PACKAGE}/config", glob("config/*.yaml")),
         (f"share/{PACKAGE}/config/laws", glob("config/laws/*.yaml")),
+        (f"share/{PACKAGE}/config/leg_laws", glob("config/leg_laws/*.yaml")),
         (f"share/{PACKAGE}/launch", glob("launch/*.py")),
         (f"share/{PACKAGE}/urdf", glob("urdf/*.urdf")),
     ],

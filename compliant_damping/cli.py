@@ -1,4 +1,5 @@
-"""``cdamp``: offline work on a series-elastic joint: simulate, analyze, tune, report, demo, keys, check-config."""
+"""``cdamp``: offline work on series-elastic joints or a URDF robot: simulate, analyze, tune, report, demo, keys,
+check-config."""
 from __future__ import annotations
 
 import argparse
@@ -8,7 +9,9 @@ import json
 import os
 import sys
 
-from . import analysis, config, config_check, controller, scenarios, simulate, tuning
+import numpy as np
+
+from . import analysis, config, config_check, controller, robot_analysis, robot_sim, scenarios, simulate, tuning
 from .laws import LAW_NAMES, make_law
 
 
@@ -31,25 +34,54 @@ def _write_csv(path, result):
                                         for j in range(len(result.joint_names)) for c in cols])
 
 
+def _is_robot(ctrl, sim) -> bool:
+    """True when either node's section names a URDF: the run is a robot with coupled links."""
+    if ctrl.urdf_source is None and sim.urdf_source is None:
+        return False
+    if ctrl.joint_names != sim.joint_names:
+        raise ValueError(f"joint_names: the controller's {ctrl.joint_names} and the simulated robot's "
+                         f"{sim.joint_names} must be the same joints in the same order")
+    return True
+
+
+def _fault(fault):
+    return None if fault is None else {"code": fault.code.value, "reason": fault.reason}
+
+
 def cmd_simulate(args) -> int:
     ctrl, sim = _load(args)
-    scenario = scenarios.make(args.scenario, sim.joints)
-    result = simulate.simulate(sim.joints, controller.bank(ctrl), scenario, args.duration,
-                               control_dt=1.0 / ctrl.control_rate, substeps=sim.substeps, seed=sim.seed)
+    dt = 1.0 / ctrl.control_rate
+    summary_extra = {}
+    if _is_robot(ctrl, sim):
+        scenario = scenarios.make(args.scenario, sim.joints, links=sim.links, floor=sim.contact)
+        result = robot_sim.simulate_robot(robot_sim.robot_plant(sim, scenario), controller.robot(ctrl), scenario,
+                                          args.duration, control_dt=dt, substeps=sim.substeps,
+                                          sensors=[j.sensor for j in sim.joints], seed=sim.seed)
+        landings = [robot_sim.touchdown(result, sim.links, c) for c in scenario.contacts]
+        summary_extra["touchdowns"] = [None if d is None else {"frame": c.frame, **dataclasses.asdict(d)}
+                                       for c, d in zip(scenario.contacts, landings)]
+    else:
+        scenario = scenarios.make(args.scenario, sim.joints)
+        result = simulate.simulate(sim.joints, controller.bank(ctrl), scenario, args.duration,
+                                   control_dt=dt, substeps=sim.substeps, seed=sim.seed)
     summary = {"law": ctrl.law, "scenario": scenario.name, "sim_time": float(len(result.t) * result.control_dt),
-               "wall_time": result.wall_time, "joints": simulate.metrics(result, scenario)}
+               "wall_time": result.wall_time, "joints": simulate.metrics(result, scenario), **summary_extra}
     for name, fault in zip(result.joint_names, result.faults):
-        summary["joints"][name]["fault"] = fault
+        summary["joints"][name]["fault"] = _fault(fault)
     if args.csv:
         _write_csv(args.csv, result)
     if args.json:
         print(json.dumps(summary, indent=2))
-    else:
-        print(f"law {ctrl.law}, scenario {scenario.name}: {summary['sim_time']:.3f} s simulated "
-              f"in {result.wall_time:.3f} s")
-        for name, m in summary["joints"].items():
-            print(f"  {name}: " + ", ".join(f"{k} {'-' if v is None else (f'{v:.4g}' if isinstance(v, float) else v)}"
-                                           for k, v in m.items()))
+        return 0
+    print(f"law {ctrl.law}, scenario {scenario.name}: {summary['sim_time']:.3f} s simulated "
+          f"in {result.wall_time:.3f} s")
+    for (name, m), fault in zip(summary["joints"].items(), result.faults):
+        m = {**m, "fault": fault}
+        print(f"  {name}: " + ", ".join(f"{k} {'-' if v is None else (f'{v:.4g}' if isinstance(v, float) else v)}"
+                                       for k, v in m.items()))
+    for d in summary.get("touchdowns", ()):
+        print("  no touchdown" if d is None else
+              f"  touchdown of {d['frame']} at {d['time']:.3f} s, {d['speed']:.3f} m/s towards the plane")
     return 0
 
 
@@ -106,11 +138,21 @@ def _modes_json(result):
             for m in result.modes]
 
 
+def _setpoint(args, sim):
+    """Set point per joint (rad): --setpoint values, default the joints' initial positions."""
+    q_d = [j.initial_position for j in sim.joints] if args.setpoint is None else list(args.setpoint)
+    if len(q_d) != len(sim.joints):
+        raise ValueError(f"setpoint: {len(q_d)} value(s) given for {len(sim.joints)} joint(s) {sim.joint_names}")
+    return q_d
+
+
 def cmd_analyze(args) -> int:
-    """Closed-loop poles, modes and static link stiffness of one joint at its set point (Coulomb off)."""
+    """Closed-loop poles and modes at the set point (Coulomb off): one joint, or the whole robot with a URDF."""
     ctrl, sim = _load(args)
+    if _is_robot(ctrl, sim):
+        return _analyze_robot(args, ctrl, sim)
     cj, sj = _joint(args, ctrl, sim)
-    q_d = sj.initial_position if args.setpoint is None else args.setpoint
+    q_d = sj.initial_position if args.setpoint is None else args.setpoint[0]
     res = analysis.analyze(sj.plant, make_law(ctrl.law, cj.model, cj.gains), q_d)
     if args.json:
         print(json.dumps({
@@ -129,6 +171,39 @@ def cmd_analyze(args) -> int:
         print(f"  {i:<6}{m.frequency_hz:>9.3f}{m.damping_ratio:>8.3f}{m.link_share:>12.2f}{tag}")
     print(f"  static link stiffness {res.static_link_stiffness:.2f} N m/rad; "
           f"2 % settling estimate 4/(zeta w_n) = {4.0 / res.dominant.decay_rate:.3f} s")
+    return 0
+
+
+def _analyze_robot(args, ctrl, sim) -> int:
+    """The coupled closed loop of a URDF robot: poles, modes with joint shares, rendered link stiffness."""
+    if args.joint:
+        raise ValueError("joint: a robot with coupled links is analysed as a whole; drop --joint")
+    q_d = _setpoint(args, sim)
+    law = make_law(ctrl.law, controller.chain_nominal(ctrl), controller.stack_gains([j.gains for j in ctrl.joints]))
+    lin = robot_analysis.linearize_robot(robot_sim.robot_plant(sim), law, q_d)
+    modes = robot_analysis.robot_modes(lin)
+    poles = np.linalg.eigvals(lin.a)
+    least = min(modes, key=lambda m: m.damping_ratio)
+    stiffness = robot_analysis.rendered_link_stiffness(lin)
+    stable = bool(np.all(poles.real < 0.0))
+    if args.json:
+        print(json.dumps({
+            "law": ctrl.law, "joints": ctrl.joint_names, "setpoint": q_d, "stable": stable,
+            "poles": [[float(p.real), float(p.imag)] for p in poles],
+            "modes": [{"frequency_hz": m.frequency_hz, "damping_ratio": m.damping_ratio,
+                       "joint_shares": m.joint_shares.tolist()} for m in modes],
+            "least_damped_mode": modes.index(least),
+            "rendered_link_stiffness": stiffness.tolist()}, indent=2))
+        return 0
+    print(f"law {ctrl.law}, robot {', '.join(ctrl.joint_names)} at {', '.join(f'{q:g}' for q in q_d)} rad, "
+          f"{'stable' if stable else 'UNSTABLE'} (linearised, Coulomb friction off)")
+    print(f"  {'mode':<6}{'f_n Hz':>9}{'zeta':>8}  joint shares ({', '.join(ctrl.joint_names)})")
+    for i, m in enumerate(modes):
+        print(f"  {i:<6}{m.frequency_hz:>9.3f}{m.damping_ratio:>8.3f}  "
+              + " ".join(f"{s:5.2f}" for s in m.joint_shares) + (" least damped" if m is least else ""))
+    print("  rendered link stiffness (N m/rad):")
+    for row in stiffness:
+        print("    " + " ".join(f"{v:11.2f}" for v in row))
     return 0
 
 
@@ -232,8 +307,9 @@ def parser() -> argparse.ArgumentParser:
     c.set_defaults(run=cmd_check_config)
     a = sub.add_parser("analyze", help="linearise law + joint at the set point: poles, modes, static stiffness")
     _file_args(a)
-    a.add_argument("--joint", help="joint to analyse (default: the first)")
-    a.add_argument("--setpoint", type=float, help="link set point, rad (default: the joint's initial position)")
+    a.add_argument("--joint", help="joint to analyse (default: the first; not for a URDF robot)")
+    a.add_argument("--setpoint", type=float, nargs="+", metavar="Q",
+                   help="link set point, rad, one per joint for a URDF robot (default: the initial positions)")
     a.add_argument("--json", action="store_true", help="print the result as JSON")
     a.set_defaults(run=cmd_analyze)
     t = sub.add_parser("tune", help="sweep decoupled_damper's k_v: impact torque vs link damping, recommend one")

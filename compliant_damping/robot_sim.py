@@ -38,7 +38,7 @@ def scripted_torques(rows: np.ndarray, n: int):
 
 
 def simulate_robot(plant, controller, scenario, duration: float | None = None, control_dt: float = 1e-3,
-                   substeps: int = 10, sensors=None, joint_names=None) -> SimResult:
+                   substeps: int = 10, sensors=None, seed: int = 0, joint_names=None) -> SimResult:
     """Run ``scenario`` for ``duration`` s (default: the scenario's) and return the time series.
 
     Parameters
@@ -49,11 +49,12 @@ def simulate_robot(plant, controller, scenario, duration: float | None = None, c
     scenario : scenarios.Scenario
         Start state, one reference per joint, scripted link torques.
     sensors : sequence of model.SensorParams, optional
-        Per joint (config.SimJoint.sensor), seeded 0; ideal sensors (the true state) by default.
+        Per joint (config.SimJoint.sensor), noise seeded with ``seed``; ideal sensors (the true state)
+        by default.
     """
     duration = scenario.duration if duration is None else duration
     n = plant.n
-    rng = np.random.default_rng(0)
+    rng = np.random.default_rng(seed)
     reads = None if sensors is None else [SensorChannel(p, control_dt, rng).read for p in sensors]
     external = scripted_torques(scenario.external, n)
     names = list(joint_names or controller.joint_names)
@@ -82,16 +83,19 @@ def simulate_robot(plant, controller, scenario, duration: float | None = None, c
 
 @dataclass(frozen=True)
 class Touchdown:
-    """First control tick at which a contact's frame is inside its plane."""
+    """How a contact's frame met its plane."""
 
-    time: float   # s
-    speed: float  # m/s: approach speed h'(t) - n . v of the frame towards the plane
+    time: float   # s: first control tick with the frame inside the plane
+    speed: float  # m/s: approach speed h'(t) - n . v at the tick before, the last one still free
 
 
 def touchdown(result: SimResult, links, contact) -> Touchdown | None:
-    """When and how fast ``contact``'s frame first met its plane in ``result``; None if it never did."""
+    """When and how fast ``contact``'s frame first met its plane in ``result``; None if it never
+    did or was inside it from the start."""
     for i, t in enumerate(result.t):
-        q = result.q[i]
-        if contact.depth(links, q, t) > 0.0:
-            return Touchdown(float(t), contact.speed_at(t) - float(contact.normal_row(links, q) @ result.dq[i]))
+        if contact.depth(links, result.q[i], t) > 0.0:
+            if i == 0:
+                return None
+            t0, q0, dq0 = result.t[i - 1], result.q[i - 1], result.dq[i - 1]
+            return Touchdown(float(t), contact.speed_at(t0) - float(contact.normal_row(links, q0) @ dq0))
     return None
