@@ -53,7 +53,7 @@ def cmd_simulate(args) -> int:
     dt = 1.0 / ctrl.control_rate
     summary_extra = {}
     if _is_robot(ctrl, sim):
-        scenario = scenarios.make(args.scenario, sim.joints, links=sim.links, floor=sim.contact)
+        scenario = scenarios.make(args.scenario, sim.joints, joints=args.joints, links=sim.links, floor=sim.contact)
         result = robot_sim.simulate_robot(robot_sim.robot_plant(sim, scenario), controller.robot(ctrl), scenario,
                                           args.duration, control_dt=dt, substeps=sim.substeps,
                                           sensors=[j.sensor for j in sim.joints], seed=sim.seed)
@@ -61,7 +61,7 @@ def cmd_simulate(args) -> int:
         summary_extra["touchdowns"] = [None if d is None else {"frame": c.frame, **dataclasses.asdict(d)}
                                        for c, d in zip(scenario.contacts, landings)]
     else:
-        scenario = scenarios.make(args.scenario, sim.joints)
+        scenario = scenarios.make(args.scenario, sim.joints, joints=args.joints)
         result = simulate.simulate(sim.joints, controller.bank(ctrl), scenario, args.duration,
                                    control_dt=dt, substeps=sim.substeps, seed=sim.seed)
     summary = {"law": ctrl.law, "scenario": scenario.name, "sim_time": float(len(result.t) * result.control_dt),
@@ -289,6 +289,8 @@ def parser() -> argparse.ArgumentParser:
     s = sub.add_parser("simulate", help="run a bundled scenario on the simulated joint, print metrics")
     _file_args(s)
     s.add_argument("--scenario", choices=scenarios.SCENARIOS, default="end_stop_impact")
+    s.add_argument("--joints", nargs="+", metavar="JOINT",
+                   help="joints the scenario steps, rings, hits or pushes (default: all; the others hold)")
     s.add_argument("--duration", type=float, help="seconds to simulate (default: the scenario's)")
     s.add_argument("--csv", help="write the time series to this CSV file")
     s.add_argument("--json", action="store_true", help="print the metrics as JSON")

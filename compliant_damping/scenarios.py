@@ -55,6 +55,8 @@ class Scenario:
         (time s, size rad) of a set-point step, for step-response metrics.
     contacts : tuple
         dynamics.elastic_chain.PlaneContact of the run (the file's floor; moving in foot_landing).
+    acting : tuple
+        Indices of the joints the scenario moves, deflects or hits (the others hold still).
     """
 
     name: str
@@ -64,6 +66,7 @@ class Scenario:
     external: np.ndarray
     step: tuple | None = None
     contacts: tuple = ()
+    acting: tuple = ()
 
 
 def _spring_deflection(plant, torque: float) -> float:
@@ -75,7 +78,7 @@ def _spring_deflection(plant, torque: float) -> float:
     return float(roots[np.argmin(np.abs(roots.imag))].real)
 
 
-def make(name: str, sim_joints, *, links=None, floor=None, step: float = 0.05, deflection: float = 0.02,
+def make(name: str, sim_joints, *, joints=None, links=None, floor=None, step: float = 0.05, deflection: float = 0.02,
          impulse: float = 0.5, impulse_width: float = 0.005, overshoot: float = 0.05,
          impact_speed: float = 1.0, landing_speed: float = 0.35, gap: float = 0.02,
          travel: float = 0.03) -> Scenario:
@@ -84,6 +87,9 @@ def make(name: str, sim_joints, *, links=None, floor=None, step: float = 0.05, d
     Parameters
     ----------
     sim_joints : sequence of config.SimJoint
+    joints : sequence of str, optional
+        Names of the joints that step, ring, hit their stop or take the impulse (default: all);
+        the others hold their initial position.
     links : dynamics.links.LinkDynamics, optional
         The simulated robot's links (config.SimSetup.links); default: the joints' own pendulums.
         The start state holds them still against gravity.
@@ -105,6 +111,13 @@ def make(name: str, sim_joints, *, links=None, floor=None, step: float = 0.05, d
     if name not in SCENARIOS:
         raise ValueError(f"scenario: unknown {name!r}; choose one of {', '.join(SCENARIOS)}")
     n = len(sim_joints)
+    names = [j.name for j in sim_joints]
+    unknown = sorted(set(joints or ()) - set(names))
+    if unknown:
+        raise ValueError(f"joints: {', '.join(unknown)} not among the simulated joints {names}")
+    acting = tuple(i for i, name in enumerate(names) if joints is None or name in joints)
+    act = np.zeros(n, dtype=bool)
+    act[list(acting)] = True
     q0 = np.array([j.initial_position for j in sim_joints])
     if links is None:
         links = IndependentLinks.from_params([j.name for j in sim_joints], [j.plant for j in sim_joints])
@@ -116,11 +129,11 @@ def make(name: str, sim_joints, *, links=None, floor=None, step: float = 0.05, d
     hold = tuple(Constant(float(q)) for q in q0)
     contacts = () if floor is None else (floor,)
     if name == "free_oscillation":
-        initial[:, 2] += deflection
-        return Scenario(name, 2.0, initial, hold, external, contacts=contacts)
+        initial[:, 2] += deflection * act
+        return Scenario(name, 2.0, initial, hold, external, contacts=contacts, acting=acting)
     if name == "setpoint_step":
-        return Scenario(name, 2.0, initial, tuple(Step(float(q), float(q) + step, 0.1) for q in q0),
-                        external, step=(0.1, step), contacts=contacts)
+        refs = tuple(Step(float(q), float(q) + step, 0.1) if a else h for q, a, h in zip(q0, act, hold))
+        return Scenario(name, 2.0, initial, refs, external, step=(0.1, step), contacts=contacts, acting=acting)
     if name == "foot_landing":
         if floor is None:
             raise ValueError("contact.frame: foot_landing needs a floor contact on a URDF frame")
@@ -129,16 +142,17 @@ def make(name: str, sim_joints, *, links=None, floor=None, step: float = 0.05, d
         height = float(np.asarray(floor.normal) @ links.frame_position(floor.frame, q0))
         moving = dataclasses.replace(floor, height=height - gap, speed=landing_speed, start_time=LANDING_START,
                                      rise_time=(gap + travel) / landing_speed)
-        return Scenario(name, 2.5, initial, hold, external, contacts=(moving,))
+        return Scenario(name, 2.5, initial, hold, external, contacts=(moving,), acting=tuple(range(n)))
     if name == "end_stop_impact":
-        refs = []
-        for j in sim_joints:
+        refs = list(hold)
+        for i in acting:
+            j = sim_joints[i]
             upper = j.plant.stop_upper
             if not math.isfinite(upper):
                 raise ValueError(f"{j.name}.stop_upper: end_stop_impact needs a finite upper end stop")
             # speed blends of 2 overshoot / speed: braking starts as the reference passes the stop
-            refs.append(Cruise(j.initial_position, upper + overshoot, impact_speed,
-                               2.0 * overshoot / impact_speed, 0.1))
-        return Scenario(name, 2.0, initial, tuple(refs), external, contacts=contacts)
-    rows = [[i, 0.2, 0.2 + impulse_width, impulse / impulse_width] for i in range(n)]
-    return Scenario(name, 1.5, initial, hold, np.array(rows, dtype=float), contacts=contacts)
+            refs[i] = Cruise(j.initial_position, upper + overshoot, impact_speed, 2.0 * overshoot / impact_speed, 0.1)
+        return Scenario(name, 2.0, initial, tuple(refs), external, contacts=contacts, acting=acting)
+    rows = [[i, 0.2, 0.2 + impulse_width, impulse / impulse_width] for i in acting]
+    return Scenario(name, 1.5, initial, hold, np.array(rows, dtype=float).reshape(-1, 4), contacts=contacts,
+                    acting=acting)

@@ -100,14 +100,15 @@ def metrics(result: SimResult, scenario) -> dict:
     """Per-joint summary (SI units; None where a metric does not apply).
 
     overshoot is a fraction of the step size; settling_time_2pct is measured from the
-    step and is the last time the link leaves the band of 2 % of the step around its target.
+    step and is the last time the link leaves the band of 2 % of the step around its target;
+    both only for the joints the scenario steps.
     """
     out = {}
     for j, name in enumerate(result.joint_names):
         q = result.q[:, j]
         entry = {**run_metrics(q, result.theta[:, j], result.tau_m[:, j], result.control_dt),
                  "overshoot": None, "settling_time_2pct": None}
-        if scenario.step is not None:
+        if scenario.step is not None and j in scenario.acting:
             t_step, size = scenario.step
             after = result.t >= t_step
             start = scenario.initial[j, 0]
