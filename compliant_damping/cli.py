@@ -7,8 +7,9 @@ import dataclasses
 import json
 import os
 import sys
+from dataclasses import MISSING
 
-from . import analysis, config, config_check, controller, scenarios, simulate, tuning
+from . import analysis, config, config_check, controller, parameter_keys, scenarios, simulate, tuning
 from .laws import LAW_NAMES, make_law
 
 
@@ -72,8 +73,8 @@ def cmd_keys(args) -> int:
     for node in (config.CONTROLLER_NODE, config.SIM_NODE):
         names = config.node_parameters(doc, node).get("joint_names", ["<joint>"])
         print(f"{node}:")
-        for spec in config.parameter_specs(node, names):
-            default = "required" if spec.default is config.MISSING else repr(spec.default)
+        for spec in parameter_keys.parameter_specs(node, names):
+            default = "required" if spec.default is MISSING else repr(spec.default)
             print(f"  {spec.key:<40} {spec.kind.__name__:<6} {default:<14} {spec.description}")
     return 0
 

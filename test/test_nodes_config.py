@@ -14,13 +14,13 @@ import pytest
 import yaml
 from rclpy.parameter import Parameter
 
-from compliant_damping import config
+from compliant_damping import config, parameter_keys
 from compliant_damping.nodes import params
 from node_harness import ros  # noqa: F401 (ros is a fixture)
 
 pytestmark = pytest.mark.ros
 
-CONTROLLER_KEYS = [s.key for s in config.parameter_specs(config.CONTROLLER_NODE, ["knee"])]
+CONTROLLER_KEYS = [s.key for s in parameter_keys.parameter_specs(config.CONTROLLER_NODE, ["knee"])]
 
 
 def test_difflib_picks_the_intended_key():

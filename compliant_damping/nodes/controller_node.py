@@ -41,7 +41,7 @@ Safety behaviour (the filter itself is safety.SafetyFilter):
   Limits refuse a torque/torque_rate above safety.MAX_RAMP_DOWN, which bounds the ramp.
 * Every fault, refused change and burst of rejected messages is logged once with its reason.
 
-Parameters: config.parameter_specs. At run time ``law``, ``<joint>.gains.*``, ``<joint>.limits.*``,
+Parameters: parameter_keys.parameter_specs. At run time ``law``, ``<joint>.gains.*``, ``<joint>.limits.*``,
 ``watchdog_timeout`` and ``gain_ramp_time`` may change (the whole set is validated by
 config.controller_setup; gains ramp in over gain_ramp_time, a law switch is bumpless); the rest
 changes only while unconfigured. Limits and the watchdog timeout only tighten at run time:

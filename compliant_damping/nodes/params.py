@@ -1,4 +1,4 @@
-"""ROS parameters of both nodes, declared from config.parameter_specs (one source of keys,
+"""ROS parameters of both nodes, declared from parameter_keys.parameter_specs (one source of keys,
 defaults, units and docs). Types are checked by config, with the same messages as for files,
 so the descriptors allow any type; only ``joint_names`` is typed and read-only.
 
@@ -10,11 +10,13 @@ others in the key list, so config refuses them by name with a did-you-mean.
 """
 from __future__ import annotations
 
+from dataclasses import MISSING
+
 from rcl_interfaces.msg import ParameterDescriptor, SetParametersResult
 from rclpy.exceptions import ParameterUninitializedException
 from rclpy.parameter import Parameter
 
-from .. import config
+from .. import parameter_keys
 
 NODE_OPTIONS = {"automatically_declare_parameters_from_overrides": True}  # rclpy.node.Node keywords
 ROS_OWN = frozenset({"use_sim_time", "start_type_description_service"})  # declared by rclpy's Node itself
@@ -28,14 +30,14 @@ def declare(node, node_name: str) -> list:
     config.controller_setup / config.sim_setup refuse them naming the key.
     """
     given = set(node.get_parameters_by_prefix("")) - ROS_OWN
-    doc = next(s.description for s in config.parameter_specs(node_name, []) if s.key == "joint_names")
+    doc = next(s.description for s in parameter_keys.parameter_specs(node_name, []) if s.key == "joint_names")
     names = _redeclare(node, "joint_names", Parameter.Type.STRING_ARRAY,
                        ParameterDescriptor(description=doc, read_only=True)).value or []
     keys = ["joint_names"]
-    for spec in config.parameter_specs(node_name, names):
+    for spec in parameter_keys.parameter_specs(node_name, names):
         if spec.key == "joint_names":
             continue
-        default = None if spec.default is config.MISSING else spec.default
+        default = None if spec.default is MISSING else spec.default
         _redeclare(node, spec.key, default, ParameterDescriptor(description=spec.description, dynamic_typing=True))
         keys.append(spec.key)
     return keys + sorted(given - set(keys))
@@ -55,9 +57,9 @@ def unknown_keys(node, node_name: str, changes) -> str | None:
     declared (see the module notes), so ``ros2 param set`` reaches the callbacks with it.
     """
     names = _get(node, "joint_names").value or []
-    known = {s.key for s in config.parameter_specs(node_name, names)}
+    known = {s.key for s in parameter_keys.parameter_specs(node_name, names)}
     unknown = sorted(p.name for p in changes if p.name not in known | ROS_OWN)
-    return str(config.unknown_key(unknown[0], node_name, names)) if unknown else None
+    return str(parameter_keys.unknown_key(unknown[0], node_name, names)) if unknown else None
 
 
 def values(node, keys, changes=()) -> dict:

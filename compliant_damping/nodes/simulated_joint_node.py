@@ -14,7 +14,7 @@ Topics (relative names):
   name, delivered as a rectangular pulse over one state period from header.stamp (or at once).
 * ``/clock`` out (rosgraph_msgs/Clock) in lock-step mode.
 
-Parameters: config.parameter_specs. The plant keys (``<joint>.stop_lower``, ``<joint>.stop_upper``
+Parameters: parameter_keys.parameter_specs. The plant keys (``<joint>.stop_lower``, ``<joint>.stop_upper``
 to move the end stops, and every other model.JointParams field) change at run time, validated by
 config.sim_setup, e.g. ``ros2 param set /simulated_joint knee.stop_upper 0.5``; the rest is fixed.
 
