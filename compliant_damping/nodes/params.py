@@ -7,6 +7,10 @@ and rclpy would silently ignore the undeclared ones (a misspelt optional limit w
 The nodes are therefore built with :data:`NODE_OPTIONS` (rclpy declares every given value at
 construction), :func:`declare` re-declares the known keys with their descriptions and leaves the
 others in the key list, so config refuses them by name with a did-you-mean.
+
+Both nodes build their setups with :func:`setup`, at start-up and for every run-time change. They
+run the built-in joints only for now: a parameter set that names a URDF (the robot section,
+robot_section.py) is refused there, naming its key.
 """
 from __future__ import annotations
 
@@ -16,8 +20,10 @@ from rcl_interfaces.msg import ParameterDescriptor, SetParametersResult
 from rclpy.exceptions import ParameterUninitializedException
 from rclpy.parameter import Parameter
 
-from .. import parameter_keys
+from .. import config, parameter_keys
+from ..robot_section import URDF_KEYS, describes_robot
 
+_SETUPS = {config.CONTROLLER_NODE: config.controller_setup, config.SIM_NODE: config.sim_setup}
 NODE_OPTIONS = {"automatically_declare_parameters_from_overrides": True}  # rclpy.node.Node keywords
 ROS_OWN = frozenset({"use_sim_time", "start_type_description_service"})  # declared by rclpy's Node itself
 
@@ -71,6 +77,24 @@ def values(node, keys, changes=()) -> dict:
         else:
             out[p.name] = list(p.value) if p.type_ == Parameter.Type.STRING_ARRAY else p.value
     return out
+
+
+def setup(node, node_name: str, keys, changes=()):
+    """The setup of ``node_name`` (config.controller_setup / config.sim_setup) from :func:`values`.
+
+    Raises
+    ------
+    config.ConfigError
+        Any problem config finds; before those, a URDF robot (robot_section.describes_robot),
+        naming the key that gives it: the nodes do not run URDF robots yet.
+    """
+    flat = values(node, keys, changes)
+    if describes_robot(flat, node_name):
+        key = next(k for k in URDF_KEYS[node_name] if flat.get(k))
+        raise config.ConfigError(key, f"the {node_name} node does not run URDF robots yet (they run offline for "
+                                      "now, in Python: robot_sim.simulate_robot, robot_analysis); leave "
+                                      f"{' and '.join(URDF_KEYS[node_name])} empty for the built-in joints")
+    return _SETUPS[node_name](flat)
 
 
 def _get(node, key):
