@@ -8,11 +8,14 @@ import dataclasses
 import json
 import os
 import sys
+from dataclasses import MISSING
 
 import numpy as np
 
-from . import analysis, config, config_check, controller, robot_analysis, robot_sim, scenarios, simulate, tuning
+from . import (analysis, config, config_check, controller, parameter_keys, robot_analysis, robot_sim, scenarios,
+               simulate, tuning)
 from .laws import LAW_NAMES, make_law
+from .robot_section import describes_robot
 
 
 def _load(args):
@@ -99,13 +102,19 @@ def cmd_demo(args) -> int:
 
 
 def cmd_keys(args) -> int:
-    """Every parameter key of both nodes, for the joints of --config (default: the bundled file)."""
+    """Every parameter key of both nodes, for the joints of --config (default: the bundled file).
+
+    A node section that names a URDF (robot_section.describes_robot) gets the robot's keys: per
+    joint the drive's only, the URDF gives the links.
+    """
     doc = config.read(args.config or config.bundled())
     for node in (config.CONTROLLER_NODE, config.SIM_NODE):
-        names = config.node_parameters(doc, node).get("joint_names", ["<joint>"])
-        print(f"{node}:")
-        for spec in config.parameter_specs(node, names):
-            default = "required" if spec.default is config.MISSING else repr(spec.default)
+        flat = config.node_parameters(doc, node)
+        names = flat.get("joint_names", ["<joint>"])
+        robot = describes_robot(flat, node)
+        print(f"{node}:" + ("  # URDF robot: the URDF gives the links" if robot else ""))
+        for spec in parameter_keys.parameter_specs(node, names, robot=robot):
+            default = "required" if spec.default is MISSING else repr(spec.default)
             print(f"  {spec.key:<40} {spec.kind.__name__:<6} {default:<14} {spec.description}")
     return 0
 

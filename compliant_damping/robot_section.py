@@ -58,15 +58,18 @@ def resolve_package_uri(key: str, uri: str) -> Path:
         raise ConfigError(key, f"expected package://PACKAGE/PATH, got {uri!r}")
     if package == "compliant_damping":
         return share_dir() / rest
+    no_index = ConfigError(key, f"{uri}: package {package!r} can only be found through the ament index "
+                                "(source a ROS 2 workspace), or give a path")
     try:
         from ament_index_python.packages import PackageNotFoundError, get_package_share_directory
     except ImportError:
-        raise ConfigError(key, f"{uri}: package {package!r} can only be found through the ament index "
-                               "(source a ROS 2 workspace), or give a path") from None
+        raise no_index from None
     try:
         return Path(get_package_share_directory(package)) / rest
     except PackageNotFoundError:
         raise ConfigError(key, f"{uri}: package {package!r} is not in the ament index") from None
+    except OSError:  # no index to search: AMENT_PREFIX_PATH unset or empty
+        raise no_index from None
 
 
 def robot_source(params: dict, node: str) -> RobotSource | None:

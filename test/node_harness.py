@@ -91,11 +91,15 @@ class Harness:
         """Controller with the bundled parameters, ``overrides`` (dotted keys via '__' in names), on sim time
         unless ``use_sim_time=False`` is among them."""
         values = {**config.node_parameters(DOC, config.CONTROLLER_NODE), "use_sim_time": True, **_dotted(overrides)}
-        return self._add(ControllerNode(context=self.context, parameter_overrides=_params(values), **self.scope))
+        return self.start(ControllerNode, values)
 
     def simulated_joint(self, **overrides) -> SimulatedJointNode:
         values = {**config.node_parameters(DOC, config.SIM_NODE), "lock_step": True, **_dotted(overrides)}
-        return self._add(SimulatedJointNode(context=self.context, parameter_overrides=_params(values), **self.scope))
+        return self.start(SimulatedJointNode, values)
+
+    def start(self, node_class, values: dict):
+        """A ``node_class`` in this harness given exactly the parameters ``values`` (dotted keys)."""
+        return self._add(node_class(context=self.context, parameter_overrides=_params(values), **self.scope))
 
     def spin_until(self, condition, timeout: float = 10.0) -> bool:
         deadline = time.monotonic() + timeout

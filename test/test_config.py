@@ -4,7 +4,7 @@ import copy
 import pytest
 import yaml
 
-from compliant_damping import config
+from compliant_damping import config, parameter_keys
 from compliant_damping.config import CONTROLLER_NODE, SIM_NODE, ConfigError
 
 BASE = config.read(config.bundled())
@@ -54,9 +54,9 @@ def test_misspelt_optional_limit_is_refused_with_the_key_meant(tmp_path):
 
 def test_did_you_mean_stays_within_the_joint():
     """A per-joint key is matched against that joint's keys only (difflib.get_close_matches)."""
-    err = config.unknown_key("ankle.limits.torqe", CONTROLLER_NODE, ["hip", "ankle"])
+    err = parameter_keys.unknown_key("ankle.limits.torqe", CONTROLLER_NODE, ["hip", "ankle"])
     assert err.reason.startswith("unknown key in damping_controller; did you mean ankle.limits.torque?")
-    far = config.unknown_key("colour", CONTROLLER_NODE, ["hip"])
+    far = parameter_keys.unknown_key("colour", CONTROLLER_NODE, ["hip"])
     assert "did you mean" not in far.reason  # nothing close: no guess
 
 

@@ -14,13 +14,16 @@ import pytest
 import yaml
 from rclpy.parameter import Parameter
 
-from compliant_damping import config
+from compliant_damping import config, parameter_keys
+from compliant_damping.model import LINK_KEYS
 from compliant_damping.nodes import params
-from node_harness import ros  # noqa: F401 (ros is a fixture)
+from compliant_damping.nodes.controller_node import ControllerNode
+from compliant_damping.nodes.simulated_joint_node import SimulatedJointNode
+from node_harness import DOC, ros  # noqa: F401 (ros is a fixture)
 
 pytestmark = pytest.mark.ros
 
-CONTROLLER_KEYS = [s.key for s in config.parameter_specs(config.CONTROLLER_NODE, ["knee"])]
+CONTROLLER_KEYS = [s.key for s in parameter_keys.parameter_specs(config.CONTROLLER_NODE, ["knee"])]
 
 
 def test_difflib_picks_the_intended_key():
@@ -71,6 +74,65 @@ def test_a_given_unknown_key_cannot_be_set_at_run_time(ros):
     assert params.unknown_keys(sim, config.SIM_NODE, [Parameter("knee.stop_upper", value=0.5)]) is None
     reason = params.unknown_keys(sim, config.SIM_NODE, [Parameter("knee.stop_uper", value=0.5)])
     assert reason.startswith("knee.stop_uper: unknown key in simulated_joint; did you mean knee.stop_upper?")
+
+
+PENDULUM_URI = "package://compliant_damping/urdf/pendulum.urdf"  # one revolute joint, knee
+
+
+def _robot_parameters(node: str, key: str) -> dict:
+    """The bundled knee as a URDF robot: the file's section without the pendulum link's keys, the
+    bundled pendulum URDF given under ``key`` (a path or the document itself)."""
+    pytest.importorskip("pinocchio", reason="the control below builds the URDF chain with Pinocchio")
+    prefix = "knee.model." if node == config.CONTROLLER_NODE else "knee."
+    values = {k: v for k, v in config.node_parameters(DOC, node).items()
+              if not (k.startswith(prefix) and k[len(prefix):] in LINK_KEYS)}
+    pendulum = config.share_dir() / "urdf" / "pendulum.urdf"
+    values[key] = pendulum.read_text() if key == "robot_description" else PENDULUM_URI
+    build = config.controller_setup if node == config.CONTROLLER_NODE else config.sim_setup
+    assert build(values).links.joint_names == ("knee",)  # control: a valid URDF robot offline
+    return values
+
+
+@pytest.mark.parametrize("key", ["nominal_urdf", "robot_description"])
+def test_controller_with_a_urdf_robot_constructs_then_refuses_to_configure(ros, capfd, key):
+    ctrl = ros.start(ControllerNode, {**_robot_parameters(config.CONTROLLER_NODE, key), "use_sim_time": True})
+    assert ctrl.trigger_configure().name == "FAILURE"
+    assert ctrl.bank is None and ctrl.setup is None  # nothing was built
+    log = capfd.readouterr().err
+    assert f"cannot configure: {key}: the damping_controller node does not run URDF robots yet" in log
+    assert "offline" in log
+
+
+@pytest.mark.parametrize("key", ["robot_urdf", "robot_description"])
+def test_simulated_joint_with_a_urdf_robot_refuses_to_start(ros, key):
+    with pytest.raises(config.ConfigError) as info:
+        ros.start(SimulatedJointNode, {**_robot_parameters(config.SIM_NODE, key), "lock_step": True})
+    assert info.value.key == key
+    assert "simulated_joint node does not run URDF robots yet" in info.value.reason
+    assert "offline" in info.value.reason
+
+
+def test_naming_a_urdf_at_run_time_is_refused(ros):
+    """An unconfigured controller validates every change (ROS 2 set-parameters callback): a URDF is refused."""
+    ctrl = ros.controller()
+    result = ctrl.set_parameters([Parameter("nominal_urdf", value=PENDULUM_URI)])[0]
+    assert not result.successful
+    assert result.reason.startswith("nominal_urdf: the damping_controller node does not run URDF robots yet")
+    assert ctrl.get_parameter("nominal_urdf").value == ""
+    assert ctrl.trigger_configure().name == "SUCCESS"  # still the built-in knee
+
+
+def test_simulated_joint_executable_refuses_a_robot_file(tmp_path):
+    """The executable exits 2 with the key and the reason, no traceback (as for any parameter error)."""
+    path = tmp_path / "robot.yaml"
+    path.write_text(yaml.safe_dump({f"/**/{config.SIM_NODE}": {
+        "ros__parameters": _robot_parameters(config.SIM_NODE, "robot_urdf")}}))
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([os.getcwd(), os.environ.get("PYTHONPATH", "")])}
+    run = subprocess.run([sys.executable, "-m", "compliant_damping.nodes.simulated_joint_node", "--ros-args",
+                          "--params-file", str(path)], capture_output=True, text=True, timeout=60, env=env)
+    assert run.returncode == 2
+    assert "parameter error: robot_urdf: the simulated_joint node does not run URDF robots yet" in run.stderr
+    assert "Traceback" not in run.stderr
 
 
 @pytest.mark.parametrize("module", ["controller_node", "simulated_joint_node"])

@@ -10,7 +10,7 @@ import pytest
 from rclpy.parameter import Parameter
 from sensor_msgs.msg import JointState
 
-from compliant_damping import analysis, config, controller, laws, scenarios, simulate
+from compliant_damping import analysis, config, controller, laws, parameter_keys, scenarios, simulate
 from node_harness import DOC, ros, seconds, stamp  # noqa: F401 (ros is a fixture)
 
 pytestmark = pytest.mark.ros
@@ -116,7 +116,7 @@ def test_rejected_parameter_changes_keep_old_values(ros):
 
 def test_parameters_are_described_with_unit_and_meaning(ros):
     ctrl, sim = ros.controller(), ros.simulated_joint()
-    spec = {s.key: s for s in config.parameter_specs(config.CONTROLLER_NODE, ["knee"])}
+    spec = {s.key: s for s in parameter_keys.parameter_specs(config.CONTROLLER_NODE, ["knee"])}
     for key in ("knee.limits.torque", "knee.gains.link_damping", "watchdog_timeout"):
         assert ctrl.describe_parameter(key).description == spec[key].description
     assert "[N m]" in ctrl.describe_parameter("knee.limits.torque").description

@@ -41,12 +41,13 @@ Safety behaviour (the filter itself is safety.SafetyFilter):
   Limits refuse a torque/torque_rate above safety.MAX_RAMP_DOWN, which bounds the ramp.
 * Every fault, refused change and burst of rejected messages is logged once with its reason.
 
-Parameters: config.parameter_specs. At run time ``law``, ``<joint>.gains.*``, ``<joint>.limits.*``,
+Parameters: parameter_keys.parameter_specs. At run time ``law``, ``<joint>.gains.*``, ``<joint>.limits.*``,
 ``watchdog_timeout`` and ``gain_ramp_time`` may change (the whole set is validated by
 config.controller_setup; gains ramp in over gain_ramp_time, a law switch is bumpless); the rest
 changes only while unconfigured. Limits and the watchdog timeout only tighten at run time:
 raising one needs an unconfigured node. Deletes are refused. ``lock_gains: true`` refuses law
-and gain changes.
+and gain changes. URDF robots are not run yet: ``nominal_urdf`` or ``robot_description`` set
+fails the configure transition, naming the key (params.setup).
 """
 from __future__ import annotations
 
@@ -104,7 +105,7 @@ class ControllerNode(LifecycleNode):
     # --- lifecycle -------------------------------------------------------------------------
     def on_configure(self, state):
         try:
-            self.setup = s = config.controller_setup(params.values(self, self._keys))
+            self.setup = s = params.setup(self, config.CONTROLLER_NODE, self._keys)
         except config.ConfigError as err:
             self.get_logger().error(f"cannot configure: {err}")
             return TransitionCallbackReturn.FAILURE
@@ -371,7 +372,7 @@ class ControllerNode(LifecycleNode):
     def _refusal(self, changes) -> str | None:
         """Why ``changes`` cannot be applied, or None after applying them."""
         try:
-            setup = config.controller_setup(params.values(self, self._keys, changes))
+            setup = params.setup(self, config.CONTROLLER_NODE, self._keys, changes)
         except config.ConfigError as err:
             return str(err)
         if self.bank is None:

@@ -1,4 +1,4 @@
-"""ROS parameters of both nodes, declared from config.parameter_specs (one source of keys,
+"""ROS parameters of both nodes, declared from parameter_keys.parameter_specs (one source of keys,
 defaults, units and docs). Types are checked by config, with the same messages as for files,
 so the descriptors allow any type; only ``joint_names`` is typed and read-only.
 
@@ -7,15 +7,23 @@ and rclpy would silently ignore the undeclared ones (a misspelt optional limit w
 The nodes are therefore built with :data:`NODE_OPTIONS` (rclpy declares every given value at
 construction), :func:`declare` re-declares the known keys with their descriptions and leaves the
 others in the key list, so config refuses them by name with a did-you-mean.
+
+Both nodes build their setups with :func:`setup`, at start-up and for every run-time change. They
+run the built-in joints only for now: a parameter set that names a URDF (the robot section,
+robot_section.py) is refused there, naming its key.
 """
 from __future__ import annotations
+
+from dataclasses import MISSING
 
 from rcl_interfaces.msg import ParameterDescriptor, SetParametersResult
 from rclpy.exceptions import ParameterUninitializedException
 from rclpy.parameter import Parameter
 
-from .. import config
+from .. import config, parameter_keys
+from ..robot_section import URDF_KEYS, describes_robot
 
+_SETUPS = {config.CONTROLLER_NODE: config.controller_setup, config.SIM_NODE: config.sim_setup}
 NODE_OPTIONS = {"automatically_declare_parameters_from_overrides": True}  # rclpy.node.Node keywords
 ROS_OWN = frozenset({"use_sim_time", "start_type_description_service"})  # declared by rclpy's Node itself
 
@@ -28,14 +36,14 @@ def declare(node, node_name: str) -> list:
     config.controller_setup / config.sim_setup refuse them naming the key.
     """
     given = set(node.get_parameters_by_prefix("")) - ROS_OWN
-    doc = next(s.description for s in config.parameter_specs(node_name, []) if s.key == "joint_names")
+    doc = next(s.description for s in parameter_keys.parameter_specs(node_name, []) if s.key == "joint_names")
     names = _redeclare(node, "joint_names", Parameter.Type.STRING_ARRAY,
                        ParameterDescriptor(description=doc, read_only=True)).value or []
     keys = ["joint_names"]
-    for spec in config.parameter_specs(node_name, names):
+    for spec in parameter_keys.parameter_specs(node_name, names):
         if spec.key == "joint_names":
             continue
-        default = None if spec.default is config.MISSING else spec.default
+        default = None if spec.default is MISSING else spec.default
         _redeclare(node, spec.key, default, ParameterDescriptor(description=spec.description, dynamic_typing=True))
         keys.append(spec.key)
     return keys + sorted(given - set(keys))
@@ -55,9 +63,9 @@ def unknown_keys(node, node_name: str, changes) -> str | None:
     declared (see the module notes), so ``ros2 param set`` reaches the callbacks with it.
     """
     names = _get(node, "joint_names").value or []
-    known = {s.key for s in config.parameter_specs(node_name, names)}
+    known = {s.key for s in parameter_keys.parameter_specs(node_name, names)}
     unknown = sorted(p.name for p in changes if p.name not in known | ROS_OWN)
-    return str(config.unknown_key(unknown[0], node_name, names)) if unknown else None
+    return str(parameter_keys.unknown_key(unknown[0], node_name, names)) if unknown else None
 
 
 def values(node, keys, changes=()) -> dict:
@@ -69,6 +77,24 @@ def values(node, keys, changes=()) -> dict:
         else:
             out[p.name] = list(p.value) if p.type_ == Parameter.Type.STRING_ARRAY else p.value
     return out
+
+
+def setup(node, node_name: str, keys, changes=()):
+    """The setup of ``node_name`` (config.controller_setup / config.sim_setup) from :func:`values`.
+
+    Raises
+    ------
+    config.ConfigError
+        Any problem config finds; before those, a URDF robot (robot_section.describes_robot),
+        naming the key that gives it: the nodes do not run URDF robots yet.
+    """
+    flat = values(node, keys, changes)
+    if describes_robot(flat, node_name):
+        key = next(k for k in URDF_KEYS[node_name] if flat.get(k))
+        raise config.ConfigError(key, f"the {node_name} node does not run URDF robots yet (they run offline for "
+                                      "now: cdamp simulate, cdamp analyze); leave "
+                                      f"{' and '.join(URDF_KEYS[node_name])} empty for the built-in joints")
+    return _SETUPS[node_name](flat)
 
 
 def _get(node, key):

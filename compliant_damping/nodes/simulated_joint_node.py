@@ -14,9 +14,11 @@ Topics (relative names):
   name, delivered as a rectangular pulse over one state period from header.stamp (or at once).
 * ``/clock`` out (rosgraph_msgs/Clock) in lock-step mode.
 
-Parameters: config.parameter_specs. The plant keys (``<joint>.stop_lower``, ``<joint>.stop_upper``
+Parameters: parameter_keys.parameter_specs. The plant keys (``<joint>.stop_lower``, ``<joint>.stop_upper``
 to move the end stops, and every other model.JointParams field) change at run time, validated by
 config.sim_setup, e.g. ``ros2 param set /simulated_joint knee.stop_upper 0.5``; the rest is fixed.
+URDF robots are not run yet: ``robot_urdf`` or ``robot_description`` set refuses the start,
+naming the key (params.setup).
 
 Modes:
 
@@ -61,7 +63,7 @@ class SimulatedJointNode(Node):
     def __init__(self, **kwargs):
         super().__init__(config.SIM_NODE, **params.NODE_OPTIONS, **kwargs)
         self._keys = params.declare(self, config.SIM_NODE)
-        self.setup = config.sim_setup(params.values(self, self._keys))
+        self.setup = params.setup(self, config.SIM_NODE, self._keys)
         self.plant = Plant(self.setup)
         names = self.setup.joint_names
         self._commands = [f"{n}_motor" for n in names]
@@ -152,7 +154,7 @@ class SimulatedJointNode(Node):
         if fixed:
             return f"{fixed[0]}: fixed after start; only plant parameters change at run time"
         try:
-            setup = config.sim_setup(params.values(self, self._keys, changes))
+            setup = params.setup(self, config.SIM_NODE, self._keys, changes)
         except config.ConfigError as err:
             return str(err)
         self.plant.set_joints(setup.joints)
