@@ -125,6 +125,11 @@ class JointController(_ScheduledLaw):
     def fault(self) -> Fault | None:
         return self.safety.fault
 
+    @property
+    def last_command_time(self) -> float | None:
+        """Stamp time (s) of the newest command sent, None before the first."""
+        return self.safety.last_time
+
     def _accel_bound(self, limits: Limits) -> float:
         return motor_accel_bound(limits, self.model.motor_inertia, self.model.spring_stiffness)
 

@@ -435,7 +435,7 @@ class ControllerNode(LifecycleNode):
 
     def _newest_command_time(self) -> float:
         """Stamp time (s) of the newest command, or the node clock before the first."""
-        times = [c.safety.last_time for c in self.bank if c.safety.last_time is not None]
+        times = [c.last_command_time for c in self.bank if c.last_command_time is not None]
         return max(times) if times else self._now()
 
     def _publish(self, taus, stamp):
