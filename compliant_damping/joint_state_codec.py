@@ -46,31 +46,31 @@ class StateDecoder:
     def decode(self, names, position, velocity, effort):
         """List of JointSample in joint order, or the :class:`Rejection` of the message."""
         result = self._decode(list(names), position, velocity, effort)
-        if isinstance(result, str):
+        if isinstance(result, Rejection):
             self.rejected += 1
-            self.last_rejection = result = Rejection(result)
+            self.last_rejection = result
         return result
 
     def _decode(self, names, position, velocity, effort):
         n = len(names)
         if len(position) != n or len(velocity) != n or len(effort) not in (0, n):
-            return (f"field lengths differ: {n} names, {len(position)} positions, "
-                    f"{len(velocity)} velocities, {len(effort)} efforts")
+            return Rejection(f"field lengths differ: {n} names, {len(position)} positions, "
+                             f"{len(velocity)} velocities, {len(effort)} efforts")
         index = {name: i for i, name in enumerate(names)}
         if len(index) != n:
-            return "repeated names"
+            return Rejection("repeated names")
         if self._from_effort and not effort:
-            return "no effort field (spring_torque_source is effort)"
+            return Rejection("no effort field (spring_torque_source is effort)")
         samples = []
         for link, motor in self._entries:
             if link not in index or motor not in index:
-                return f"no entry {link if link not in index else motor!r}"
+                return Rejection(f"no entry {link if link not in index else motor!r}")
             i, m = index[link], index[motor]
             values = [position[i], velocity[i], position[m], velocity[m]]
             if self._from_effort:
                 values.append(effort[i])
             if not _finite(values):
-                return f"non-finite value for {link!r}/{motor!r}"
+                return Rejection(f"non-finite value for {link!r}/{motor!r}")
             samples.append(JointSample(*values[:4], values[4] if self._from_effort else math.nan))
         return samples
 
