@@ -41,6 +41,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .dynamics.links import LinkMotion
 from .fields import param
 from .sample import JointSample
 
@@ -75,13 +76,10 @@ class NominalModel(NominalDrive):
         """d g(q)/dt = g'(q) q' (N m/s)."""
         return self.gravity_slope(q) * dq
 
-    def link_acceleration(self, q: float, dq: float, tau_s: float) -> float:
-        """Model-based link acceleration (tau_s - g(q)) / M (rad/s^2)."""
-        return (tau_s - self.gravity(q)) / self.link_inertia
-
-    def link_jerk(self, q: float, dq: float, tau_s: float, dtau_s: float) -> float:
-        """Model-based link jerk (tau_s' - g'(q) q') / M (rad/s^3)."""
-        return (dtau_s - self.gravity_slope(q) * dq) / self.link_inertia
+    def link_motion(self, q: float, dq: float, tau_s: float, dtau_s: float) -> LinkMotion:
+        """Model-based link acceleration (tau_s - g(q)) / M (rad/s^2) and jerk (tau_s' - g'(q) q') / M (rad/s^3)."""
+        m = self.link_inertia
+        return LinkMotion((tau_s - self.gravity(q)) / m, (dtau_s - self.gravity_slope(q) * dq) / m)
 
 
 @dataclass(frozen=True)
@@ -92,7 +90,8 @@ class ChainNominal:
     ``links`` is a link-dynamics object (dynamics.links.IndependentLinks or
     dynamics.urdf_chain.UrdfChain); ``motor_inertia`` B and ``spring_stiffness`` K are diagonal.
     The acceleration is forward dynamics (ABA) with the spring torques; the jerk comes from its
-    analytic derivatives (design notes, section 4): dFD/dq q' + dFD/dq' q''_m + M^-1 tau_s'.
+    analytic derivatives (design notes, section 4): dFD/dq q' + dFD/dq' q''_m + M^-1 tau_s', and
+    the same derivatives pass yields the acceleration (LinkDynamics.motion).
     """
 
     links: object
@@ -107,13 +106,9 @@ class ChainNominal:
         """d g(q)/dt = (dg/dq) q' (N m/s)."""
         return self.links.gravity_jacobian(q) @ dq
 
-    def link_acceleration(self, q, dq, tau_s):
-        """Forward dynamics with the spring torques (rad/s^2)."""
-        return self.links.forward(q, dq, tau_s)
-
-    def link_jerk(self, q, dq, tau_s, dtau_s):
-        """Derivative of the forward dynamics along the motion (rad/s^3)."""
-        return self.links.jerk(q, dq, tau_s, dtau_s)
+    def link_motion(self, q: np.ndarray, dq: np.ndarray, tau_s: np.ndarray, dtau_s: np.ndarray) -> LinkMotion:
+        """Forward dynamics with the spring torques (rad/s^2) and its derivative along the motion (rad/s^3)."""
+        return self.links.motion(q, dq, tau_s, dtau_s)
 
 
 @dataclass(frozen=True)
@@ -178,7 +173,21 @@ class MotorPD(Law):
 
 
 class _Transformed(Law):
-    """Structure-preserving transformation; subclasses give u1 and its two derivatives."""
+    """Structure-preserving transformation; subclasses give u1 and its two derivatives.
+
+    Motor inertia shaping ``u2 <- r u2 + (1 - r) k (eta - q)`` with ``r = B / B_d`` per joint
+    (``r = 1``, unshaped, where B_d is unset: 0); ``r`` and ``B / k`` are fixed with the gains.
+    """
+
+    def __init__(self, model, gains: Gains, torque_sensor: bool = False):
+        super().__init__(model, gains, torque_sensor)
+        b, b_d = model.motor_inertia, gains.motor_inertia_target
+        self._inertia_over_stiffness = b / model.spring_stiffness
+        if isinstance(b_d, np.ndarray):  # per joint
+            ratio = np.divide(b, b_d, out=np.ones(len(b_d)), where=b_d > 0.0)
+            self._shaping = ratio if np.any(b_d > 0.0) else None
+        else:
+            self._shaping = b / b_d if b_d > 0.0 else None
 
     def link_input(self, s: JointSample, ref, z, ddq: float, dddq: float):
         """(u1, u1', u1'') given the model-based link acceleration and jerk."""
@@ -186,20 +195,16 @@ class _Transformed(Law):
 
     def output(self, s, ref, z):
         m = self.model
-        k, B = m.spring_stiffness, m.motor_inertia
+        k = m.spring_stiffness
         spring = s.tau_s if self.torque_sensor else k * (s.theta - s.q)
-        ddq = m.link_acceleration(s.q, s.dq, spring)
-        dddq = m.link_jerk(s.q, s.dq, spring, k * (s.dtheta - s.dq))
+        ddq, dddq = m.link_motion(s.q, s.dq, spring, k * (s.dtheta - s.dq))
         u1, du1, ddu1 = self.link_input(s, ref, z, ddq, dddq)
         eta, deta = s.theta - u1 / k, s.dtheta - du1 / k
         u2 = _eta_regulation(m, self.gains, ref, eta, deta)
-        b_d = self.gains.motor_inertia_target
-        if isinstance(b_d, np.ndarray):  # per joint; an unset target (0) leaves that joint unshaped
-            ratio = np.divide(B, b_d, out=np.ones(len(b_d)), where=b_d > 0.0)
+        ratio = self._shaping
+        if ratio is not None:
             u2 = ratio * u2 + (1.0 - ratio) * k * (eta - s.q)
-        elif b_d > 0.0:
-            u2 = (B / b_d) * u2 + (1.0 - B / b_d) * k * (eta - s.q)
-        return u2 + u1 + (B / k) * ddu1
+        return u2 + u1 + self._inertia_over_stiffness * ddu1
 
 
 class LinkDamping(_Transformed):
@@ -332,14 +337,14 @@ class LawRunner:
 
     States advance by the exact zero-order-hold solution of z' = A z + b q over the tick
     (the measured link position held), computed in closed form (:func:`zoh`) so a tick costs
-    the same whatever the jitter of the stamps. (This keeps the damper's own update exact;
-    whether the closed loop is stable at a given rate is a question for the analysis.)
+    the same whatever the jitter of the stamps, and kept for the next tick of the same length
+    while the gains stay (a fixed-rate loop discretises once). (This keeps the damper's own update
+    exact; whether the closed loop is stable at a given rate is a question for the analysis.)
     """
 
     def __init__(self, law: Law, sample: JointSample, ref=None, previous_torque: float | None = None):
-        self.law = law
+        self.set_law(law)
         self.z = law.initial_state(sample)
-        self._matrices = law.state_matrices()
         if previous_torque is not None and law.n_states:
             self.z = self._bumpless_state(sample, ref, previous_torque)
 
@@ -362,12 +367,20 @@ class LawRunner:
     def set_law(self, law: Law) -> None:
         """Same law with new gains; states are kept (same number of states)."""
         self.law, self._matrices = law, law.state_matrices()
+        self._held_dt = math.nan  # tick length (s) that self._held_zoh is for; NaN: none yet
+        self._held_zoh: tuple = ()
+
+    def _discrete(self, dt: float) -> tuple:
+        """(Ad, bd) of :func:`zoh` over ``dt`` s, reused while ``dt`` and the law stay the same."""
+        if dt != self._held_dt:
+            self._held_dt, self._held_zoh = dt, zoh(*self._matrices, dt)
+        return self._held_zoh
 
     def step(self, s: JointSample, ref, dt: float) -> float:
         """Torque for this tick (N m); advances the law's states by ``dt`` seconds."""
         tau = self.law.output(s, ref, self.z)
         if self.law.n_states:
-            ad, bd = zoh(*self._matrices, dt)
+            ad, bd = self._discrete(dt)
             z = self.z
             self.z = tuple(sum(ad[i][j] * z[j] for j in range(len(z))) + bd[i] * s.q
                            for i in range(len(z)))
