@@ -37,7 +37,8 @@ Laws (see DEVELOPERS.md for the derivations):
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 
@@ -46,6 +47,31 @@ from .fields import param
 from .sample import JointSample
 
 LAW_NAMES = ("zero", "motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
+
+
+class RegulationTarget(NamedTuple):
+    """What a reference asks of the motor side: gravity feed-forward and the motor set point.
+
+    Attributes (floats for a bench joint, one entry per joint on a chain)
+    ----------
+    gravity :
+        g(q_d) (N m).
+    position :
+        eta_d = q_d + K^-1 g(q_d) (rad): motor_pd's theta_d, the transformed laws' eta_d.
+    speed :
+        eta_d' = q_d' + K^-1 (dg/dq) q_d' (rad/s).
+    """
+
+    gravity: float
+    position: float
+    speed: float
+
+
+def regulation_target(model, q_d, dq_d) -> RegulationTarget:
+    """:class:`RegulationTarget` of the reference position ``q_d`` (rad) and speed ``dq_d`` (rad/s)."""
+    k = model.spring_stiffness
+    g_d = model.gravity(q_d)
+    return RegulationTarget(g_d, q_d + g_d / k, dq_d + model.gravity_rate(q_d, dq_d) / k)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -76,6 +102,10 @@ class NominalModel(NominalDrive):
         """d g(q)/dt = g'(q) q' (N m/s)."""
         return self.gravity_slope(q) * dq
 
+    def regulation_target(self, q_d: float, dq_d: float) -> RegulationTarget:
+        """See :func:`regulation_target`."""
+        return regulation_target(self, q_d, dq_d)
+
     def link_motion(self, q: float, dq: float, tau_s: float, dtau_s: float) -> LinkMotion:
         """Model-based link acceleration (tau_s - g(q)) / M (rad/s^2) and jerk (tau_s' - g'(q) q') / M (rad/s^3)."""
         m = self.link_inertia
@@ -97,6 +127,17 @@ class ChainNominal:
     links: object
     motor_inertia: np.ndarray
     spring_stiffness: np.ndarray
+    _held: list = field(default_factory=list, init=False, repr=False, compare=False)  # regulation_target's last
+
+    def regulation_target(self, q_d: np.ndarray, dq_d: np.ndarray) -> RegulationTarget:
+        """See :func:`regulation_target`; kept while q_d and q_d' stay the same (a set point costs one
+        pass of the link dynamics, not one per tick). The arrays returned are shared: read them only."""
+        held = self._held
+        if held and (held[0] == q_d).all() and (held[1] == dq_d).all():
+            return held[2]
+        target = regulation_target(self, q_d, dq_d)
+        held[:] = (np.array(q_d, dtype=float), np.array(dq_d, dtype=float), target)  # copies: callers reuse arrays
+        return target
 
     def gravity(self, q: np.ndarray) -> np.ndarray:
         """g(q) (N m)."""
@@ -126,12 +167,8 @@ class Gains:
 
 def _eta_regulation(model: NominalModel, gains: Gains, ref, eta: float, deta: float) -> float:
     """u2 of the transformed laws: PD on eta around eta_d = q_d + g(q_d)/k, gravity feed-forward."""
-    q_d, dq_d, _ = ref
-    k = model.spring_stiffness
-    g_d = model.gravity(q_d)
-    eta_d = q_d + g_d / k
-    deta_d = dq_d + model.gravity_rate(q_d, dq_d) / k
-    return g_d - gains.motor_stiffness * (eta - eta_d) - gains.motor_damping * (deta - deta_d)
+    target = model.regulation_target(ref[0], ref[1])
+    return target.gravity - gains.motor_stiffness * (eta - target.position) - gains.motor_damping * (deta - target.speed)
 
 
 class Law:
@@ -164,12 +201,9 @@ class MotorPD(Law):
     name = "motor_pd"
 
     def output(self, s, ref, z):
-        m, g = self.model, self.gains
-        q_d, dq_d, _ = ref
-        g_d = m.gravity(q_d)
-        theta_d = q_d + g_d / m.spring_stiffness
-        dtheta_d = dq_d + m.gravity_rate(q_d, dq_d) / m.spring_stiffness
-        return g.motor_stiffness * (theta_d - s.theta) - g.motor_damping * (s.dtheta - dtheta_d) + g_d
+        g = self.gains
+        target = self.model.regulation_target(ref[0], ref[1])
+        return g.motor_stiffness * (target.position - s.theta) - g.motor_damping * (s.dtheta - target.speed) + target.gravity
 
 
 class _Transformed(Law):
