@@ -80,10 +80,8 @@ def simulate_robot(plant, controller, scenario, duration: float | None = None, c
         t = i * control_dt
         states[i] = x
         tau_s = plant.spring_torque(x)
-        if reads is None:
-            readings = [JointSample(*x[j], tau_s[j]) for j in range(n)]
-        else:
-            readings = [read(*x[j], tau_s[j]) for j, read in enumerate(reads)]
+        rows = [(*row, torque) for row, torque in zip(x.tolist(), tau_s.tolist())]  # Python floats per joint
+        readings = [JointSample(*r) for r in rows] if reads is None else [read(*r) for read, r in zip(reads, rows)]
         ref = Reference(*(np.array(column) for column in zip(*(r.sample(t) for r in scenario.references))))
         tau = controller.step(readings, ref, t, control_dt)
         tau_m[i] = plant.advance(x, tau, external, t, h, substeps)
