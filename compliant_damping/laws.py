@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from operator import mul
 from typing import NamedTuple
 
 import numpy as np
@@ -416,6 +417,5 @@ class LawRunner:
         if self.law.n_states:
             ad, bd = self._discrete(dt)
             z = self.z
-            self.z = tuple(sum(ad[i][j] * z[j] for j in range(len(z))) + bd[i] * s.q
-                           for i in range(len(z)))
+            self.z = tuple(sum(map(mul, row, z)) + b * s.q for row, b in zip(ad, bd))  # Ad z + bd q
         return tau
