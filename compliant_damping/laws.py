@@ -168,8 +168,8 @@ class Gains:
 
 def _eta_regulation(model: NominalModel, gains: Gains, ref, eta: float, deta: float) -> float:
     """u2 of the transformed laws: PD on eta around eta_d = q_d + g(q_d)/k, gravity feed-forward."""
-    target = model.regulation_target(ref[0], ref[1])
-    return target.gravity - gains.motor_stiffness * (eta - target.position) - gains.motor_damping * (deta - target.speed)
+    g_d, eta_d, deta_d = model.regulation_target(ref[0], ref[1])
+    return g_d - gains.motor_stiffness * (eta - eta_d) - gains.motor_damping * (deta - deta_d)
 
 
 class Law:
@@ -203,8 +203,8 @@ class MotorPD(Law):
 
     def output(self, s, ref, z):
         g = self.gains
-        target = self.model.regulation_target(ref[0], ref[1])
-        return g.motor_stiffness * (target.position - s.theta) - g.motor_damping * (s.dtheta - target.speed) + target.gravity
+        g_d, theta_d, dtheta_d = self.model.regulation_target(ref[0], ref[1])
+        return g.motor_stiffness * (theta_d - s.theta) - g.motor_damping * (s.dtheta - dtheta_d) + g_d
 
 
 class _Transformed(Law):
