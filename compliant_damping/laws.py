@@ -146,7 +146,7 @@ class ChainNominal:
 
     def gravity_rate(self, q: np.ndarray, dq: np.ndarray) -> np.ndarray:
         """d g(q)/dt = (dg/dq) q' (N m/s)."""
-        return self.links.gravity_jacobian(q) @ dq
+        return self.links.gravity_jacobian(q).dot(dq)
 
     def link_motion(self, q: np.ndarray, dq: np.ndarray, tau_s: np.ndarray, dtau_s: np.ndarray) -> LinkMotion:
         """Forward dynamics with the spring torques (rad/s^2) and its derivative along the motion (rad/s^3)."""
