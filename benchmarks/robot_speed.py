@@ -37,9 +37,9 @@ from compliant_damping.controller import stack_gains
 from compliant_damping.laws import ChainNominal, LawRunner, make_law
 from compliant_damping.robot_sim import simulate_robot
 from compliant_damping.sample import JointSample
-from tick_worker import KNEE, LEG_LOOP, TICKS, chain7, hold, leg, leg_plant, robot
+from tick_worker import BENCH, KNEE, LEG_LOOP, TICKS, chain7, hold, leg, leg_plant, robot
 
-ROUNDS = 7
+ROUNDS = 9
 START = "13ec718"  # the commit this speed work began from (controller and leg loop before / now)
 BASE = "b9b234c"   # the one-joint path may be no slower than here
 TICK_TARGET = 100e-6  # s per controller tick, 7 joints
@@ -98,20 +98,32 @@ def before_and_now() -> None:
         finally:
             for w in workers.values():
                 w.close()
-    med = {name: {case: statistics.median(v) for case, v in cases.items()} for name, cases in times.items()}
-    print(f"before / now, separate processes, median of {ROUNDS} interleaved rounds:")
+    def both(fn, fmt: str = ".2f") -> str:
+        """Median over the rounds of ``fn(one round's times)``, by wall clock, then by CPU time in brackets
+        (a ratio is taken within each round, then its median)."""
+        return " ".join(("{:" + fmt + "}" if k == 0 else "({:" + fmt + "})").format(statistics.median(
+            fn({name: {case: v[r][k] for case, v in cases.items()} for name, cases in times.items()})
+            for r in range(ROUNDS))) for k in (0, 1))
+
+    print(f"before / now, separate processes, median of {ROUNDS} interleaved rounds "
+          "(wall clock; CPU time in brackets):")
     print(f"  controller tick, RobotController.step with decoupled_damper (target {TICK_TARGET * 1e6:.0f} us):")
-    for case, label in [("robot3", "3 joints (leg)"), ("robot7", "7 joints (chain)")]:
-        before, now = med[START][case], med["now"][case]
-        print(f"    {label:18s} {START} {before * 1e6:7.1f} us, now {now * 1e6:7.1f} us: {before / now:4.1f}x faster; "
-              f"now {now / TICK_TARGET:4.2f}x the target")
-    before, now = LEG_LOOP / med[START]["leg_loop"], LEG_LOOP / med["now"]["leg_loop"]
-    print(f"  coupled 3-joint leg closed loop, 1 kHz control / 10 kHz plant: real-time factor {START} {before:.2f}x, "
-          f"now {now:.2f}x ({now / before:.1f}x faster); {now / RTF_TARGET:.2f}x the {RTF_TARGET:.0f}x target")
-    base, start, now = med[BASE]["bench"], med[START]["bench"], med["now"]["bench"]
-    print(f"  one-joint bench closed loop (one_joint.yaml, decoupled_damper, JointController on floats), wall time "
-          f"per simulated s: {BASE} {base * 1e3:.1f} ms, {START} {start * 1e3:.1f} ms, now {now * 1e3:.1f} ms; "
-          f"now / {BASE} = {now / base:.2f}, now / {START} = {now / start:.2f}")
+    for c, label in [("robot3", "3 joints (leg)"), ("robot7", "7 joints (chain)")]:
+        print(f"    {label:16s} {START} {both(lambda m: m[START][c] * 1e6, '.1f')} us, "
+              f"now {both(lambda m: m['now'][c] * 1e6, '.1f')} us: {both(lambda m: m[START][c] / m['now'][c])}x "
+              f"faster; now {both(lambda m: m['now'][c] / TICK_TARGET)}x the target")
+    print(f"  coupled 3-joint leg closed loop, 1 kHz control / 10 kHz plant, real-time factor: "
+          f"{START} {both(lambda m: LEG_LOOP / m[START]['leg_loop'])}x, "
+          f"now {both(lambda m: LEG_LOOP / m['now']['leg_loop'])}x, "
+          f"{both(lambda m: m[START]['leg_loop'] / m['now']['leg_loop'])}x faster; "
+          f"now {both(lambda m: LEG_LOOP / m['now']['leg_loop'] / RTF_TARGET)}x the {RTF_TARGET:.0f}x target")
+    print("  one-joint bench closed loop (one_joint.yaml, decoupled_damper, JointController on floats), "
+          "per simulated s:")
+    print(f"    {BASE} {both(lambda m: m[BASE]['bench'] / BENCH * 1e3, '.1f')} ms, "
+          f"{START} {both(lambda m: m[START]['bench'] / BENCH * 1e3, '.1f')} ms, "
+          f"now {both(lambda m: m['now']['bench'] / BENCH * 1e3, '.1f')} ms; "
+          f"now / {BASE} = {both(lambda m: m['now']['bench'] / m[BASE]['bench'])}, "
+          f"now / {START} = {both(lambda m: m['now']['bench'] / m[START]['bench'])}")
 
 
 def chain(links):

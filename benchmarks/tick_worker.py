@@ -7,14 +7,16 @@ seconds per case. Only interfaces that every compared commit has are used here.
 
 Cases:
 
+Each case answers [wall s, CPU s]:
+
 ``bench``
-    Wall time (s) of a 1 s closed loop of the bundled one-joint file (simulate.simulate,
+    Time of a BENCH s closed loop of the bundled one-joint file (simulate.simulate,
     decoupled_damper, scenario free_oscillation, 1 kHz control, 10 plant substeps).
 ``leg_loop``
-    Wall time (s) of LEG_LOOP s of the 3-joint leg's closed loop (robot_sim.simulate_robot, 1 kHz
+    Time of LEG_LOOP s of the 3-joint leg's closed loop (robot_sim.simulate_robot, 1 kHz
     control, 10 RK4 plant substeps per tick).
 ``robot3``, ``robot7``
-    Wall time (s) of one RobotController.step (decoupled_damper, per-joint safety filters) on the
+    Time of one RobotController.step (decoupled_damper, per-joint safety filters) on the
     bundled 3-joint leg or the generated 7-joint chain, mean over TICKS ticks.
 
     python benchmarks/tick_worker.py     (then write e.g. ``bench robot3`` on stdin)
@@ -42,6 +44,7 @@ from link_dynamics_cost import seven_joint_urdf
 
 TICKS = 2000
 LEG_LOOP = 0.5  # s simulated per leg closed-loop run
+BENCH = 2.0     # s simulated per one-joint closed-loop run
 CTRL, SIM = config.load(config.bundled())
 KNEE = CTRL.joints[0]
 
@@ -66,23 +69,30 @@ class RobotTicks:
         self.t = 0.0
         self()  # first tick: law built, bumpless start
 
-    def __call__(self) -> float:
-        """Mean wall time (s) of one step over TICKS ticks."""
-        start = time.perf_counter()
+    def __call__(self) -> list:
+        """Mean [wall, CPU] time (s) of one step over TICKS ticks."""
+        return spent(self._ticks, TICKS)
+
+    def _ticks(self) -> None:
         for _ in range(TICKS):
             self.t += 1e-3
             self.ctrl.step(self.readings, self.ref, self.t, 1e-3)
-        return (time.perf_counter() - start) / TICKS
 
 
-def bench() -> float:
-    """Wall time (s) of the 1 s one-joint closed loop."""
+def spent(fn, calls: int = 1) -> list:
+    """[wall, CPU] time (s) of ``fn()``, divided by ``calls``: wall time is what a real-time factor
+    means, this process's CPU time hardly depends on the other load of a shared machine."""
+    wall, cpu = time.perf_counter(), time.process_time()
+    fn()
+    return [(time.perf_counter() - wall) / calls, (time.process_time() - cpu) / calls]
+
+
+def bench() -> list:
+    """[wall, CPU] time (s) of BENCH s of the one-joint closed loop."""
     ctrl = dataclasses.replace(CTRL, law="decoupled_damper")
     scenario = scenarios.make("free_oscillation", SIM.joints)
     bank = controller.bank(ctrl)
-    start = time.perf_counter()
-    simulate.simulate(SIM.joints, bank, scenario, 1.0, control_dt=1e-3, substeps=10)
-    return time.perf_counter() - start
+    return spent(lambda: simulate.simulate(SIM.joints, bank, scenario, BENCH, control_dt=1e-3, substeps=10))
 
 
 def leg() -> UrdfChain:
@@ -107,14 +117,13 @@ def hold(links, duration: float) -> scenarios.Scenario:
     return scenarios.Scenario("hold", duration, x0, tuple(Constant(float(q)) for q in q0), np.zeros((0, 4)))
 
 
-def leg_loop() -> float:
-    """Wall time (s) of LEG_LOOP s of the leg's closed loop: robot_sim.simulate_robot, RobotController
-    with decoupled_damper holding the start, ElasticChain plant with the bench knee's drive, RK4."""
+def leg_loop() -> list:
+    """[wall, CPU] time (s) of LEG_LOOP s of the leg's closed loop: robot_sim.simulate_robot,
+    RobotController with decoupled_damper holding the start, ElasticChain plant with the bench
+    knee's drive, RK4."""
     links = leg()
-    plant, ctrl = leg_plant(links), robot(links)
-    start = time.perf_counter()
-    simulate_robot(plant, ctrl, hold(links, LEG_LOOP), LEG_LOOP, 1e-3, 10)
-    return time.perf_counter() - start
+    plant, ctrl, scenario = leg_plant(links), robot(links), hold(links, LEG_LOOP)
+    return spent(lambda: simulate_robot(plant, ctrl, scenario, LEG_LOOP, 1e-3, 10))
 
 
 def main() -> None:
