@@ -68,12 +68,16 @@ class _ScheduledLaw:
         if self._runner is not None and self._ramp is None:
             self._rebuild(gains)
 
-    def _run_law(self, s, ref, t: float, dt: float, previous_torque):
+    def _last_command(self):
+        """The last torque command sent (N m; one per joint for a robot), for a bumpless start."""
+        raise NotImplementedError
+
+    def _run_law(self, s, ref, t: float, dt: float):
         """The law's torque for reading ``s`` at stamp time ``t``, its states advanced by ``dt`` s."""
         gains = self._apply_ramp(t)
         if self._runner is None:
             self._runner = LawRunner(make_law(self.law_name, self.model, gains, self.torque_sensor), s, ref,
-                                     previous_torque=previous_torque)
+                                     previous_torque=self._last_command())
         return self._runner.step(s, ref, dt if math.isfinite(dt) and dt > 0.0 else 0.0)  # NaN dt: hold
 
     def _apply_ramp(self, t) -> Gains:
@@ -133,6 +137,9 @@ class JointController(_ScheduledLaw):
     def _accel_bound(self, limits: Limits) -> float:
         return motor_accel_bound(limits, self.model.motor_inertia, self.model.spring_stiffness)
 
+    def _last_command(self) -> float:
+        return self.safety.last_torque
+
     def step(self, s: JointSample, ref, t: float, dt: float) -> float:
         """Motor torque command (N m) for reading ``s``, reference ``ref`` = (q_d, q_d', q_d''), at stamp time ``t``.
 
@@ -150,7 +157,7 @@ class JointController(_ScheduledLaw):
                 lim = self.safety.limits
                 if not lim.position_lower <= q_d <= lim.position_upper:
                     ref = Reference(min(max(q_d, lim.position_lower), lim.position_upper), dq_d, ddq_d)
-                tau = self._run_law(s, ref, t, dt, self.safety.last_torque)
+                tau = self._run_law(s, ref, t, dt)
         return self.safety.filter(s, tau, t)
 
     def ramp_down(self, t: float) -> float:
@@ -237,19 +244,26 @@ class RobotController(_ScheduledLaw):
         """Fault per joint (None where none)."""
         return [f.fault for f in self.filters]
 
+    def _last_command(self) -> np.ndarray:
+        return np.array([f.last_torque for f in self.filters])
+
     def step(self, readings, ref, t: float, dt: float) -> np.ndarray:
-        """Motor torques (N m) for the per-joint readings at stamp time ``t``; ``ref`` = (q_d, q_d', q_d'') arrays."""
-        healthy = (all(f.fault is None and f.check(s) is None for f, s in zip(self.filters, readings))
-                   and all(np.all(np.isfinite(r)) for r in ref))
-        tau = None
-        if healthy:
-            s = JointSample(*(np.array(column, dtype=float) for column in zip(*readings)))
-            ref = Reference(np.clip(ref[0], self._lower, self._upper), ref[1], ref[2])  # as JointController
-            tau = self._run_law(s, ref, t, dt, np.array([f.last_torque for f in self.filters]))
-        elif self.filters[0].fault is None and not all(np.all(np.isfinite(r)) for r in ref):
+        """Motor torques (N m) for the per-joint readings at stamp time ``t``; ``ref`` = (q_d, q_d', q_d'') arrays.
+
+        Each reading is checked once (safety.SafetyFilter.check); the law runs only when every joint
+        is out of fault with a reading within limits and the reference is finite.
+        """
+        checks = [f.check(s) for f, s in zip(self.filters, readings)]
+        ref_finite = bool(np.isfinite(ref).all())
+        tau = [None] * len(readings)
+        if ref_finite and all(c is None for c in checks) and all(f.fault is None for f in self.filters):
+            s = JointSample(*np.array(readings, dtype=float).T)
+            ref = Reference(np.minimum(np.maximum(ref[0], self._lower), self._upper), ref[1], ref[2])  # clipped
+            tau = self._run_law(s, ref, t, dt).tolist()
+        elif not ref_finite and self.filters[0].fault is None:
             self.filters[0].trip(Fault(FaultCode.NON_FINITE_REFERENCE, "non-finite reference"))
-        out = np.array([f.filter(s, None if tau is None else float(tau[j]), t)
-                        for j, (f, s) in enumerate(zip(self.filters, readings))])
+        out = np.array([f.filter_checked(s, fault, tau_j, t)
+                        for f, s, fault, tau_j in zip(self.filters, readings, checks, tau)])
         self._spread_faults()
         return out
 

@@ -37,14 +37,42 @@ Laws (see DEVELOPERS.md for the derivations):
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from operator import mul
+from typing import NamedTuple
 
 import numpy as np
 
+from .dynamics.links import LinkMotion
 from .fields import param
 from .sample import JointSample
 
 LAW_NAMES = ("zero", "motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
+
+
+class RegulationTarget(NamedTuple):
+    """What a reference asks of the motor side: gravity feed-forward and the motor set point.
+
+    Attributes (floats for a bench joint, one entry per joint on a chain)
+    ----------
+    gravity :
+        g(q_d) (N m).
+    position :
+        eta_d = q_d + K^-1 g(q_d) (rad): motor_pd's theta_d, the transformed laws' eta_d.
+    speed :
+        eta_d' = q_d' + K^-1 (dg/dq) q_d' (rad/s).
+    """
+
+    gravity: float
+    position: float
+    speed: float
+
+
+def regulation_target(model, q_d, dq_d) -> RegulationTarget:
+    """:class:`RegulationTarget` of the reference position ``q_d`` (rad) and speed ``dq_d`` (rad/s)."""
+    k = model.spring_stiffness
+    g_d = model.gravity(q_d)
+    return RegulationTarget(g_d, q_d + g_d / k, dq_d + model.gravity_rate(q_d, dq_d) / k)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -75,13 +103,14 @@ class NominalModel(NominalDrive):
         """d g(q)/dt = g'(q) q' (N m/s)."""
         return self.gravity_slope(q) * dq
 
-    def link_acceleration(self, q: float, dq: float, tau_s: float) -> float:
-        """Model-based link acceleration (tau_s - g(q)) / M (rad/s^2)."""
-        return (tau_s - self.gravity(q)) / self.link_inertia
+    def regulation_target(self, q_d: float, dq_d: float) -> RegulationTarget:
+        """See :func:`regulation_target`."""
+        return regulation_target(self, q_d, dq_d)
 
-    def link_jerk(self, q: float, dq: float, tau_s: float, dtau_s: float) -> float:
-        """Model-based link jerk (tau_s' - g'(q) q') / M (rad/s^3)."""
-        return (dtau_s - self.gravity_slope(q) * dq) / self.link_inertia
+    def link_motion(self, q: float, dq: float, tau_s: float, dtau_s: float) -> LinkMotion:
+        """Model-based link acceleration (tau_s - g(q)) / M (rad/s^2) and jerk (tau_s' - g'(q) q') / M (rad/s^3)."""
+        m = self.link_inertia
+        return LinkMotion((tau_s - self.gravity(q)) / m, (dtau_s - self.gravity_slope(q) * dq) / m)
 
 
 @dataclass(frozen=True)
@@ -92,12 +121,24 @@ class ChainNominal:
     ``links`` is a link-dynamics object (dynamics.links.IndependentLinks or
     dynamics.urdf_chain.UrdfChain); ``motor_inertia`` B and ``spring_stiffness`` K are diagonal.
     The acceleration is forward dynamics (ABA) with the spring torques; the jerk comes from its
-    analytic derivatives (design notes, section 4): dFD/dq q' + dFD/dq' q''_m + M^-1 tau_s'.
+    analytic derivatives (design notes, section 4): dFD/dq q' + dFD/dq' q''_m + M^-1 tau_s', and
+    the same derivatives pass yields the acceleration (LinkDynamics.motion).
     """
 
     links: object
     motor_inertia: np.ndarray
     spring_stiffness: np.ndarray
+    _held: list = field(default_factory=list, init=False, repr=False, compare=False)  # regulation_target's last
+
+    def regulation_target(self, q_d: np.ndarray, dq_d: np.ndarray) -> RegulationTarget:
+        """See :func:`regulation_target`; kept while q_d and q_d' stay the same (a set point costs one
+        pass of the link dynamics, not one per tick). The arrays returned are shared: read them only."""
+        held = self._held
+        if held and (held[0] == q_d).all() and (held[1] == dq_d).all():
+            return held[2]
+        target = regulation_target(self, q_d, dq_d)
+        held[:] = (np.array(q_d, dtype=float), np.array(dq_d, dtype=float), target)  # copies: callers reuse arrays
+        return target
 
     def gravity(self, q: np.ndarray) -> np.ndarray:
         """g(q) (N m)."""
@@ -105,15 +146,11 @@ class ChainNominal:
 
     def gravity_rate(self, q: np.ndarray, dq: np.ndarray) -> np.ndarray:
         """d g(q)/dt = (dg/dq) q' (N m/s)."""
-        return self.links.gravity_jacobian(q) @ dq
+        return self.links.gravity_jacobian(q).dot(dq)
 
-    def link_acceleration(self, q, dq, tau_s):
-        """Forward dynamics with the spring torques (rad/s^2)."""
-        return self.links.forward(q, dq, tau_s)
-
-    def link_jerk(self, q, dq, tau_s, dtau_s):
-        """Derivative of the forward dynamics along the motion (rad/s^3)."""
-        return self.links.jerk(q, dq, tau_s, dtau_s)
+    def link_motion(self, q: np.ndarray, dq: np.ndarray, tau_s: np.ndarray, dtau_s: np.ndarray) -> LinkMotion:
+        """Forward dynamics with the spring torques (rad/s^2) and its derivative along the motion (rad/s^3)."""
+        return self.links.motion(q, dq, tau_s, dtau_s)
 
 
 @dataclass(frozen=True)
@@ -131,11 +168,7 @@ class Gains:
 
 def _eta_regulation(model: NominalModel, gains: Gains, ref, eta: float, deta: float) -> float:
     """u2 of the transformed laws: PD on eta around eta_d = q_d + g(q_d)/k, gravity feed-forward."""
-    q_d, dq_d, _ = ref
-    k = model.spring_stiffness
-    g_d = model.gravity(q_d)
-    eta_d = q_d + g_d / k
-    deta_d = dq_d + model.gravity_rate(q_d, dq_d) / k
+    g_d, eta_d, deta_d = model.regulation_target(ref[0], ref[1])
     return g_d - gains.motor_stiffness * (eta - eta_d) - gains.motor_damping * (deta - deta_d)
 
 
@@ -169,16 +202,27 @@ class MotorPD(Law):
     name = "motor_pd"
 
     def output(self, s, ref, z):
-        m, g = self.model, self.gains
-        q_d, dq_d, _ = ref
-        g_d = m.gravity(q_d)
-        theta_d = q_d + g_d / m.spring_stiffness
-        dtheta_d = dq_d + m.gravity_rate(q_d, dq_d) / m.spring_stiffness
+        g = self.gains
+        g_d, theta_d, dtheta_d = self.model.regulation_target(ref[0], ref[1])
         return g.motor_stiffness * (theta_d - s.theta) - g.motor_damping * (s.dtheta - dtheta_d) + g_d
 
 
 class _Transformed(Law):
-    """Structure-preserving transformation; subclasses give u1 and its two derivatives."""
+    """Structure-preserving transformation; subclasses give u1 and its two derivatives.
+
+    Motor inertia shaping ``u2 <- r u2 + (1 - r) k (eta - q)`` with ``r = B / B_d`` per joint
+    (``r = 1``, unshaped, where B_d is unset: 0); ``r`` and ``B / k`` are fixed with the gains.
+    """
+
+    def __init__(self, model, gains: Gains, torque_sensor: bool = False):
+        super().__init__(model, gains, torque_sensor)
+        b, b_d = model.motor_inertia, gains.motor_inertia_target
+        self._inertia_over_stiffness = b / model.spring_stiffness
+        if isinstance(b_d, np.ndarray):  # per joint
+            ratio = np.divide(b, b_d, out=np.ones(len(b_d)), where=b_d > 0.0)
+            self._shaping = ratio if np.any(b_d > 0.0) else None
+        else:
+            self._shaping = b / b_d if b_d > 0.0 else None
 
     def link_input(self, s: JointSample, ref, z, ddq: float, dddq: float):
         """(u1, u1', u1'') given the model-based link acceleration and jerk."""
@@ -186,20 +230,16 @@ class _Transformed(Law):
 
     def output(self, s, ref, z):
         m = self.model
-        k, B = m.spring_stiffness, m.motor_inertia
+        k = m.spring_stiffness
         spring = s.tau_s if self.torque_sensor else k * (s.theta - s.q)
-        ddq = m.link_acceleration(s.q, s.dq, spring)
-        dddq = m.link_jerk(s.q, s.dq, spring, k * (s.dtheta - s.dq))
+        ddq, dddq = m.link_motion(s.q, s.dq, spring, k * (s.dtheta - s.dq))
         u1, du1, ddu1 = self.link_input(s, ref, z, ddq, dddq)
         eta, deta = s.theta - u1 / k, s.dtheta - du1 / k
         u2 = _eta_regulation(m, self.gains, ref, eta, deta)
-        b_d = self.gains.motor_inertia_target
-        if isinstance(b_d, np.ndarray):  # per joint; an unset target (0) leaves that joint unshaped
-            ratio = np.divide(B, b_d, out=np.ones(len(b_d)), where=b_d > 0.0)
+        ratio = self._shaping
+        if ratio is not None:
             u2 = ratio * u2 + (1.0 - ratio) * k * (eta - s.q)
-        elif b_d > 0.0:
-            u2 = (B / b_d) * u2 + (1.0 - B / b_d) * k * (eta - s.q)
-        return u2 + u1 + (B / k) * ddu1
+        return u2 + u1 + self._inertia_over_stiffness * ddu1
 
 
 class LinkDamping(_Transformed):
@@ -332,14 +372,14 @@ class LawRunner:
 
     States advance by the exact zero-order-hold solution of z' = A z + b q over the tick
     (the measured link position held), computed in closed form (:func:`zoh`) so a tick costs
-    the same whatever the jitter of the stamps. (This keeps the damper's own update exact;
-    whether the closed loop is stable at a given rate is a question for the analysis.)
+    the same whatever the jitter of the stamps, and kept for the next tick of the same length
+    while the gains stay (a fixed-rate loop discretises once). (This keeps the damper's own update
+    exact; whether the closed loop is stable at a given rate is a question for the analysis.)
     """
 
     def __init__(self, law: Law, sample: JointSample, ref=None, previous_torque: float | None = None):
-        self.law = law
+        self.set_law(law)
         self.z = law.initial_state(sample)
-        self._matrices = law.state_matrices()
         if previous_torque is not None and law.n_states:
             self.z = self._bumpless_state(sample, ref, previous_torque)
 
@@ -362,13 +402,20 @@ class LawRunner:
     def set_law(self, law: Law) -> None:
         """Same law with new gains; states are kept (same number of states)."""
         self.law, self._matrices = law, law.state_matrices()
+        self._held_dt = math.nan  # tick length (s) that self._held_zoh is for; NaN: none yet
+        self._held_zoh: tuple = ()
+
+    def _discrete(self, dt: float) -> tuple:
+        """(Ad, bd) of :func:`zoh` over ``dt`` s, reused while ``dt`` and the law stay the same."""
+        if dt != self._held_dt:
+            self._held_dt, self._held_zoh = dt, zoh(*self._matrices, dt)
+        return self._held_zoh
 
     def step(self, s: JointSample, ref, dt: float) -> float:
         """Torque for this tick (N m); advances the law's states by ``dt`` seconds."""
         tau = self.law.output(s, ref, self.z)
         if self.law.n_states:
-            ad, bd = zoh(*self._matrices, dt)
+            ad, bd = self._discrete(dt)
             z = self.z
-            self.z = tuple(sum(ad[i][j] * z[j] for j in range(len(z))) + bd[i] * s.q
-                           for i in range(len(z)))
+            self.z = tuple(sum(map(mul, row, z)) + b * s.q for row, b in zip(ad, bd))  # Ad z + bd q
         return tau

@@ -7,6 +7,7 @@ the same simulate.SimResult every command uses.
 """
 from __future__ import annotations
 
+import bisect
 import time
 from dataclasses import dataclass
 
@@ -27,13 +28,26 @@ def robot_plant(sim, scenario=None) -> ElasticChain:
 
 
 def scripted_torques(rows: np.ndarray, n: int):
-    """``external(t)``: link torques (N m, length n) of scenario rows ``[joint, t_on, t_off, torque]``, on [t_on, t_off)."""
+    """``external(t)``: link torques (N m, length n) of scenario rows ``[joint, t_on, t_off, torque]``, on [t_on, t_off).
+
+    The torques are piecewise constant between the rows' switching times, so each piece is summed
+    once here and ``external(t)`` looks its piece up (the plant asks three times per RK4 step).
+    The arrays it returns are shared and read-only.
+    """
     rows = np.asarray(rows, dtype=float).reshape(-1, 4)
     joints = rows[:, 0].astype(int)
 
-    def external(t: float) -> np.ndarray:
+    def summed(t: float) -> np.ndarray:
         on = (rows[:, 1] <= t) & (t < rows[:, 2])
         return np.bincount(joints[on], weights=rows[on, 3], minlength=n).astype(float)
+
+    switches = sorted(set(rows[:, 1:3].ravel().tolist()))
+    pieces = [np.zeros(n)] + [summed(t) for t in switches]  # before the first switch, then from each one on
+    for piece in pieces:
+        piece.flags.writeable = False
+
+    def external(t: float) -> np.ndarray:
+        return pieces[bisect.bisect_right(switches, t)]
     return external
 
 
@@ -67,10 +81,8 @@ def simulate_robot(plant, controller, scenario, duration: float | None = None, c
         t = i * control_dt
         states[i] = x
         tau_s = plant.spring_torque(x)
-        if reads is None:
-            readings = [JointSample(*x[j], tau_s[j]) for j in range(n)]
-        else:
-            readings = [read(*x[j], tau_s[j]) for j, read in enumerate(reads)]
+        rows = [(*row, torque) for row, torque in zip(x.tolist(), tau_s.tolist())]  # Python floats per joint
+        readings = [JointSample(*r) for r in rows] if reads is None else [read(*r) for read, r in zip(reads, rows)]
         ref = Reference(*(np.array(column) for column in zip(*(r.sample(t) for r in scenario.references))))
         tau = controller.step(readings, ref, t, control_dt)
         tau_m[i] = plant.advance(x, tau, external, t, h, substeps)

@@ -179,7 +179,11 @@ class SafetyFilter:
 
         ``tau`` is None when the law gave no output (in fault, or on a bad reading).
         """
-        fault = self.check(s)
+        return self.filter_checked(s, self.check(s), tau, t)
+
+    def filter_checked(self, s: JointSample, fault: Fault | None, tau: float | None, t: float) -> float:
+        """:meth:`filter` for a caller that has already checked ``s``: ``fault`` is ``self.check(s)``
+        under the current limits (a robot checks every joint before it runs its law, once per tick)."""
         if fault is None and tau is not None and not math.isfinite(tau):
             fault = Fault(FaultCode.NON_FINITE_TORQUE, "non-finite torque from the law")
         if fault is not None:
@@ -190,7 +194,8 @@ class SafetyFilter:
 
     def _observe(self, s: JointSample, t: float, within_limits: bool) -> None:
         """Remember ``s`` and decide whether its motor speed can be trusted."""
-        previous, self._previous = self._previous, ((s, t) if s.is_finite() and math.isfinite(t) else None)
+        kept = (within_limits or s.is_finite()) and math.isfinite(t)  # within limits: checked finite
+        previous, self._previous = self._previous, ((s, t) if kept else None)
         self._last_sample = s
         self.trusted = within_limits and previous is not None and self._plausible(previous, s, t)
 

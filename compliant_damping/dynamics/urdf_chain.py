@@ -20,7 +20,7 @@ from typing import Sequence
 import numpy as np
 
 from ..parameter_files import share_dir
-from .links import ForwardDerivatives, LinkDynamics, RobotModelError, as_vector
+from .links import ForwardDerivatives, LinkDynamics, LinkMotion, RobotModelError, as_vector
 
 __all__ = ["UrdfChain", "bundled_urdf", "STANDARD_GRAVITY"]
 
@@ -135,6 +135,7 @@ class UrdfChain(LinkDynamics):
         self._q = np.zeros(model.nq)   # working copies in Pinocchio's order (no per-call allocation)
         self._v = np.zeros(model.nv)
         self._w = np.zeros(model.nv)
+        self._dw = np.zeros(model.nv)  # a torque rate, for motion()
         try:
             np.linalg.cholesky(self.mass_matrix(np.zeros(len(names))))
         except np.linalg.LinAlgError:
@@ -206,6 +207,17 @@ class UrdfChain(LinkDynamics):
         d_dq, d_dv, minv = self._pin.computeABADerivatives(self._model, self._data, self._q, self._v, self._w)
         return ForwardDerivatives(ddq=self._data.ddq[self._perm], ddq_dq=d_dq[self._square],
                                   ddq_dv=d_dv[self._square], minv=minv[self._square])
+
+    def motion(self, q, dq, tau, dtau) -> LinkMotion:
+        """q'' and q''' from one call of Pinocchio's ABA derivatives (see :meth:`LinkDynamics.motion`).
+
+        The jerk is summed in Pinocchio's joint order and permuted once, as a vector.
+        """
+        self._load(q, dq, tau)
+        self._dw[self._perm] = as_vector(dtau, self.n, "dtau")
+        d_dq, d_dv, minv = self._pin.computeABADerivatives(self._model, self._data, self._q, self._v, self._w)
+        d = ForwardDerivatives(ddq=self._data.ddq, ddq_dq=d_dq, ddq_dv=d_dv, minv=minv)
+        return LinkMotion(d.ddq[self._perm], d.jerk(self._v, self._dw)[self._perm])
 
     def kinetic_energy(self, q, dq) -> float:
         self._load(q, dq)
