@@ -123,7 +123,7 @@ class JointController(_ScheduledLaw):
     def __init__(self, law: str, model: NominalModel, gains: Gains, limits: Limits,
                  safe_mode: str = "zero_torque", torque_sensor: bool = False, period: float = 1e-3):
         super().__init__(law, model, gains, torque_sensor)
-        self.safety = SafetyFilter(limits, safe_mode, period, self._accel_bound(limits))
+        self.safety = SafetyFilter(limits, safe_mode, period, self._accel_bound(limits), torque_sensor)
 
     @property
     def fault(self) -> Fault | None:
@@ -148,7 +148,8 @@ class JointController(_ScheduledLaw):
         derivatives kept, as joint_state_codec.ReferenceSchedule does), offline and over ROS alike.
         """
         tau = None  # in fault or on a bad reading the filter commands the safe torque
-        if self.safety.fault is None and s.is_finite():
+        fault = self.safety.check(s)
+        if self.safety.fault is None and fault is None:
             q_d, dq_d, ddq_d = ref
             if not (math.isfinite(q_d) and math.isfinite(dq_d) and math.isfinite(ddq_d)):
                 # laws cannot take it (math.sin(inf) raises)
@@ -158,7 +159,7 @@ class JointController(_ScheduledLaw):
                 if not lim.position_lower <= q_d <= lim.position_upper:
                     ref = Reference(min(max(q_d, lim.position_lower), lim.position_upper), dq_d, ddq_d)
                 tau = self._run_law(s, ref, t, dt)
-        return self.safety.filter(s, tau, t)
+        return self.safety.filter_checked(s, fault, tau, t)
 
     def ramp_down(self, t: float) -> float:
         """Command (N m) at stamp time ``t`` without a fresh reading: towards zero at the slew limit."""
@@ -224,7 +225,7 @@ class RobotController(_ScheduledLaw):
                  torque_sensor: bool = False, period: float = 1e-3):
         super().__init__(law, model, self._stacked(law, gains), torque_sensor)
         self.joint_names = list(joint_names)
-        self.filters = [SafetyFilter(lim, safe_mode, period, motor_accel_bound(lim, b, k))
+        self.filters = [SafetyFilter(lim, safe_mode, period, motor_accel_bound(lim, b, k), torque_sensor)
                         for lim, b, k in zip(limits, model.motor_inertia, model.spring_stiffness)]
         self._clip_limits()
 

@@ -34,7 +34,7 @@ class StateDecoder:
     """Readings of the configured joints from one joint-state message; counts rejected messages.
 
     joints: ``config.ControllerJoint`` entries (their ``link_state``/``motor_state`` names);
-    spring_torque_from_effort: take tau_s from the link entry's effort (else tau_s is NaN).
+    spring_torque_from_effort: take tau_s from the link entry's effort (else tau_s is None).
     """
 
     def __init__(self, joints, spring_torque_from_effort: bool):
@@ -71,7 +71,7 @@ class StateDecoder:
                 values.append(effort[i])
             if not _finite(values):
                 return Rejection(f"non-finite value for {link!r}/{motor!r}")
-            samples.append(JointSample(*values[:4], values[4] if self._from_effort else math.nan))
+            samples.append(JointSample(*values[:4], values[4] if self._from_effort else None))
         return samples
 
 

@@ -321,8 +321,8 @@ def make_law(name: str, model: NominalModel, gains: Gains, torque_sensor: bool =
     """Build the law called ``name`` (one of LAW_NAMES).
 
     torque_sensor: the model-based link acceleration uses the measured spring torque
-    (``JointSample.tau_s``; a NaN reading then yields a NaN torque, which the safety filter
-    refuses) instead of ``k (theta - q)``; it then also sees a progressive spring's stiffening.
+    (``JointSample.tau_s``, which the controllers' safety filters require finite before the law
+    runs) instead of ``k (theta - q)``; it then also sees a progressive spring's stiffening.
     """
     check_gains(name, gains)
     return _LAWS[name](model, gains, torque_sensor)

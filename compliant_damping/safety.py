@@ -136,16 +136,19 @@ class SafetyFilter:
         Nominal control period (s): the slew budget of a first command and the cap after a gap.
     accel_bound : float
         Largest plausible motor acceleration (rad/s^2), :func:`motor_accel_bound`.
+    torque_reading : bool
+        The law takes the spring torque from the reading: a reading without a finite one is refused.
     """
 
     def __init__(self, limits: Limits, safe_mode: str = "zero_torque", period: float = 1e-3,
-                 accel_bound: float = math.inf):
+                 accel_bound: float = math.inf, torque_reading: bool = False):
         if safe_mode not in SAFE_MODES:
             raise ValueError(f"safe_mode: must be one of {', '.join(SAFE_MODES)} (got {safe_mode!r})")
         self.limits = limits
         self.safe_mode = safe_mode
         self.period = period
         self.accel_bound = accel_bound
+        self.torque_reading = torque_reading
         self.last_torque = 0.0
         self.last_time: float | None = None   # newest stamp time seen (s), monotonic
         self.fault: Fault | None = None
@@ -158,6 +161,8 @@ class SafetyFilter:
         lim = self.limits
         if not s.is_finite():
             return Fault(FaultCode.NON_FINITE_READING, "non-finite joint state")
+        if self.torque_reading and (s.tau_s is None or not math.isfinite(s.tau_s)):
+            return Fault(FaultCode.NON_FINITE_READING, "no finite spring torque in the joint state")
         if abs(s.theta - s.q) > lim.deflection:
             return Fault(FaultCode.DEFLECTION, f"spring deflection {_num(s.theta - s.q)} rad beyond {lim.deflection} rad")
         if not lim.position_lower <= s.q <= lim.position_upper:

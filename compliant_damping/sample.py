@@ -10,17 +10,18 @@ class JointSample(NamedTuple):
 
     q, dq: link position (rad) and speed (rad/s); theta, dtheta: motor position
     (rad) and speed (rad/s) reflected through the gear; tau_s: spring torque
-    (N m) when a torque sensor reports it, NaN otherwise.
+    (N m) when a torque sensor reports it, None otherwise.
     """
 
     q: float
     dq: float
     theta: float
     dtheta: float
-    tau_s: float = math.nan
+    tau_s: float | None = None
 
     def is_finite(self) -> bool:
-        """True when the four kinematic readings are finite (tau_s may be NaN: not measured)."""
+        """True when the four kinematic readings are finite (the spring torque is checked by
+        whoever uses it: safety.SafetyFilter with ``torque_reading``)."""
         isfinite = math.isfinite  # spelled out: called several times per control tick
         return isfinite(self.q) and isfinite(self.dq) and isfinite(self.theta) and isfinite(self.dtheta)
 

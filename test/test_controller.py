@@ -31,12 +31,12 @@ class Scripted:
         self.ctrl = JointController(law, JOINT.model, gains, JOINT.limits, CTRL.safe_mode)
         self.actions = sorted(actions, key=lambda a: a[0])
         self.raw, self.cmd, self.t, self.dq, self.marks = [], [], [], [], []
-        inner = self.ctrl.safety.filter
+        inner = self.ctrl.safety.filter_checked
 
-        def recording_filter(s, tau, dt):
+        def recording_filter(s, fault, tau, t):
             self.raw.append(tau)
-            return inner(s, tau, dt)
-        self.ctrl.safety.filter = recording_filter
+            return inner(s, fault, tau, t)
+        self.ctrl.safety.filter_checked = recording_filter
 
     @property
     def fault(self):
@@ -208,3 +208,4 @@ def test_motor_inertia_shaping_ramp_in_motion_does_not_jump():
     jump = abs(instant.raw[k] - base.raw[k])
     drift = [abs(a - b) for a, b in zip(ramped.raw[k:k + 5], base.raw[k:k + 5])]
     assert jump > 0.5 and max(drift) < 0.2 * jump
+

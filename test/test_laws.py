@@ -180,11 +180,12 @@ def test_torque_sensor_reading_equals_deflection_for_a_linear_undamped_spring():
 
 
 def test_torque_sensor_without_a_reading_trips_the_safety_filter():
-    """A law told to read the spring torque refuses a reading without one (NaN): the filter trips
-    and the command stays zero; the bundled file's ``spring_torque_source`` selects the reading."""
+    """A law told to read the spring torque refuses a reading without one: the filter trips on the
+    reading before the law runs and the command stays zero; the bundled file's
+    ``spring_torque_source`` selects the reading."""
     ctrl = JointController("link_damping", JOINT.model, GAINS, WIDE, torque_sensor=True)
     assert ctrl.step(JointSample(0.0, 0.0, 0.0, 0.0), (0.0, 0.0, 0.0), 0.0, 1e-3) == 0.0
-    assert ctrl.fault.code is FaultCode.NON_FINITE_TORQUE
+    assert ctrl.fault.code is FaultCode.NON_FINITE_READING
     params = config.node_parameters(config.read(config.bundled()), config.CONTROLLER_NODE)
     setup = config.controller_setup({**params, "spring_torque_source": "effort"})
     assert [c.torque_sensor for c in bank(setup)] == [True] and not bank(CTRL)[0].torque_sensor
