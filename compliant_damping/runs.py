@@ -19,7 +19,7 @@ __all__ = ["Run", "STATE_SERIES"]
 STATE_SERIES = ("q", "dq", "theta", "dtheta", "tau_s")
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Run:
     """Time series of one run of a robot's joints; 2-D arrays are joint-major columns, shape (samples, joints).
 
@@ -49,7 +49,8 @@ class Run:
     wall_time : float or None
         Wall-clock time spent producing the run (s); None for recordings.
 
-    The dataclass is frozen (fields cannot be rebound); the arrays themselves are not copied.
+    The dataclass is frozen (fields cannot be rebound); the arrays themselves are not copied. Runs compare by
+    identity (``==`` on arrays has no single truth value): compare their arrays or their metrics.
     """
 
     source: str
