@@ -43,7 +43,7 @@ def setups(law: str):
 
 
 def run_simulator(law: str, duration: float):
-    """(wall s, CPU s, SimResult) of one closed-loop run."""
+    """(wall s, CPU s, runs.Run) of one closed-loop run."""
     ctrl, sim = setups(law)
     scenario = scenarios.make(SCENARIO, sim.joints)
     bank = controller.bank(ctrl)
@@ -90,7 +90,7 @@ def main() -> None:
         results[law] = runs[-1][2]
 
     result = results["zero"]
-    assert not np.any(result.tau_m) and result.faults == [None], "zero law must leave the plant alone"
+    assert not np.any(result.tau_m) and result.faults == (None,), "zero law must leave the plant alone"
     ours = np.stack([result.q, result.dq, result.theta, result.dtheta], axis=2).reshape(len(result.t), -1).T
     *_, reference = run_solve_ivp("DOP853", 1e-13, 1e-15, result.t)
     our_err = float(np.max(np.abs(ours - reference)))

@@ -15,6 +15,7 @@ import numpy as np
 from . import (analysis, config, config_check, controller, parameter_keys, robot_analysis, robot_sim, scenarios,
                simulate, tuning)
 from .laws import LAW_NAMES, make_law
+from .metrics import joint_metrics, to_dicts
 from .robot_section import describes_robot
 
 
@@ -47,10 +48,6 @@ def _is_robot(ctrl, sim) -> bool:
     return True
 
 
-def _fault(fault):
-    return None if fault is None else {"code": fault.code.value, "reason": fault.reason}
-
-
 def cmd_simulate(args) -> int:
     ctrl, sim = _load(args)
     dt = 1.0 / ctrl.control_rate
@@ -68,9 +65,9 @@ def cmd_simulate(args) -> int:
         result = simulate.simulate(sim.joints, controller.bank(ctrl), scenario, args.duration,
                                    control_dt=dt, substeps=sim.substeps, seed=sim.seed)
     summary = {"law": ctrl.law, "scenario": scenario.name, "sim_time": float(len(result.t) * result.control_dt),
-               "wall_time": result.wall_time, "joints": simulate.metrics(result, scenario), **summary_extra}
+               "wall_time": result.wall_time, "joints": to_dicts(joint_metrics(result, scenario)), **summary_extra}
     for name, fault in zip(result.joint_names, result.faults):
-        summary["joints"][name]["fault"] = _fault(fault)
+        summary["joints"][name]["fault"] = None if fault is None else fault.to_dict()
     if args.csv:
         _write_csv(args.csv, result)
     if args.json:
@@ -274,8 +271,8 @@ def cmd_report(args) -> int:
         while stem in stems:
             stem += "_"
         stems.add(stem)
-        report[stem] = {"source": str(run), "plot": str(plots.plot_run(rec, out / f"{stem}.png")),
-                        "joints": recordings.metrics(rec)}
+        report[stem] = {"source": str(run), "plot": str(plots.plot_runs({stem: rec}, out / f"{stem}.png")),
+                        "joints": to_dicts(joint_metrics(rec), step=False)}
         for joint, m in report[stem]["joints"].items():
             print(f"{stem:<24}{joint:<12}" + "".join(f"{m[k]:>19{fmt}}" for k, _, fmt in REPORT_COLUMNS))
     (out / "report.json").write_text(json.dumps(report, indent=2))

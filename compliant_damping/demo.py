@@ -5,7 +5,7 @@ the simulated joint in lock step, the controller on sim time with that law, and 
 player, which activates the controller, streams the scenario's reference on ``link_reference``,
 records ``joint_states`` and ``motor_effort`` and paces the loop (the joint takes its commands
 from the player on config.PACED_EFFORT, see nodes/scenario_player.py). The same scenario then runs offline
-(simulate.simulate); both are summarised by simulate.metrics. Writes ``summary.json``, the
+(simulate.simulate); both runs are runs.Run, summarised by metrics.joint_metrics. Writes ``summary.json``, the
 processes' logs and ``impact.png`` (link position and motor torque around the impact, one trace
 per law) to the output folder. No ROS imports here: the ROS work happens in the child processes.
 """
@@ -24,6 +24,8 @@ import numpy as np
 import yaml
 
 from . import config, controller, plots, recordings, scenarios, simulate
+from .metrics import joint_metrics, to_dicts
+from .runs import Run
 
 DEMO_LAWS = ("motor_pd", "link_damping", "decoupled_damper")
 SCENARIO = "end_stop_impact"
@@ -86,8 +88,8 @@ def namespaced_file(params_file: Path, ns: str, path: Path) -> Path:
     return path
 
 
-def run_over_ros(law: str, params_file: Path, out: Path, timeout: float) -> dict:
-    """One lock-step run of the scenario with ``law``; returns the player's recorded arrays."""
+def run_over_ros(law: str, params_file: Path, out: Path, timeout: float) -> Run:
+    """One lock-step run of the scenario with ``law``, as the player recorded it (source ``"ros"``)."""
     ns = f"/cdamp_demo_{os.getpid()}"  # own namespace, /clock and /diagnostics in it: other runs stay apart
     node_file = namespaced_file(params_file, ns, out / "parameters.yaml")
     ros_args = ["--ros-args", "-r", f"__ns:={ns}", "-r", f"/clock:={ns}/clock", "-r", f"/diagnostics:={ns}/diagnostics"]
@@ -110,17 +112,7 @@ def run_over_ros(law: str, params_file: Path, out: Path, timeout: float) -> dict
             stop(proc)
     if player.returncode != 0:
         raise DemoError(f"{law}: the scenario player failed (exit {player.returncode}); see {out}/{law}.*.log")
-    with np.load(record) as data:
-        return {k: data[k] for k in data.files}
-
-
-def as_result(rec: dict, control_dt: float) -> simulate.SimResult:
-    """A ROS recording as a SimResult (commands aligned with the states they answer)."""
-    if len(rec["t_cmd"]) != len(rec["t"]):
-        raise DemoError(f"{len(rec['t'])} states but {len(rec['t_cmd'])} commands recorded")
-    names = [str(n) for n in rec["joint_names"]]
-    return simulate.SimResult(names, rec["t"], rec["q"], rec["dq"], rec["theta"], rec["dtheta"], rec["tau_m"],
-                              rec["tau_s"], faults=[None] * len(names), control_dt=control_dt, wall_time=0.0)
+    return dataclasses.replace(recordings.read_npz(record), source="ros")
 
 
 def _impact_window(results: dict, stop: float, before: float = 0.1, after: float = 0.3):
@@ -132,15 +124,10 @@ def _impact_window(results: dict, stop: float, before: float = 0.1, after: float
 
 
 def _plot(results: dict, stop: float, path: Path) -> Path:
-    """plots.plot_run with one 'joint' per law: the first joint's series around the impact."""
+    """plots.plot_runs with one line per law: the first joint's series around the impact."""
     start, end = _impact_window(results, stop)
-    joints = {}
-    for law, r in results.items():
-        w = (r.t >= start) & (r.t <= end)
-        s = {k: getattr(r, k)[w, 0] for k in recordings.CSV_SERIES}
-        joints[law] = recordings.JointRecord(t=r.t[w], t_cmd=r.t[w], **s)
-    return plots.plot_run(recordings.Recording("demo", joints), path,
-                          title=f"{SCENARIO} over ROS: link position and motor torque around the impact")
+    parts = {law: r.window(start, end, r.joint_names[:1]) for law, r in results.items()}
+    return plots.plot_runs(parts, path, title=f"{SCENARIO} over ROS: link position and motor torque around the impact")
 
 
 def run(params_file=None, out="results/demo", laws=DEMO_LAWS, timeout: float = 60.0) -> dict:
@@ -157,16 +144,19 @@ def run(params_file=None, out="results/demo", laws=DEMO_LAWS, timeout: float = 6
     ros_results = {}
     for law in laws:
         law_setup = dataclasses.replace(ctrl, law=law)
-        ros = as_result(run_over_ros(law, params_file, out, timeout), dt)
+        ros = run_over_ros(law, params_file, out, timeout)
         offline = simulate.simulate(sim.joints, controller.bank(law_setup), scenario, control_dt=dt,
                                     substeps=sim.substeps, seed=sim.seed)
+        if ros.q.shape != offline.q.shape or not np.array_equal(ros.t_cmd, ros.t):
+            raise DemoError(f"{law}: {len(ros.t)} states and {len(ros.t_cmd)} commands recorded over ROS, "
+                            f"{len(offline.t)} ticks offline; see {out}/{law}.*.log")
         ros_results[law] = ros
         summary["laws"][law] = {
-            "ros": simulate.metrics(ros, scenario),
-            "offline": simulate.metrics(offline, scenario),
+            "ros": to_dicts(joint_metrics(ros, scenario)),
+            "offline": to_dicts(joint_metrics(offline, scenario)),
             "max_link_position_difference": float(np.max(np.abs(ros.q - offline.q))),
             "max_torque_difference": float(np.max(np.abs(ros.tau_m - offline.tau_m))),
-            "offline_faults": offline.faults,
+            "offline_faults": [None if f is None else f.to_dict() for f in offline.faults],
         }
     summary["plot"] = str(_plot(ros_results, sim.joints[0].plant.stop_upper, out / "impact.png"))
     summary["wall_time"] = time.perf_counter() - start

@@ -1,7 +1,9 @@
-"""Plots of runs (recordings.Recording), written as PNG files with matplotlib's Agg backend."""
+"""Plots of runs (runs.Run) and tuning sweeps, written as PNG files with matplotlib's Agg backend."""
 from __future__ import annotations
 
 from pathlib import Path
+
+__all__ = ["plot_runs", "plot_tuning"]
 
 
 def _pyplot():
@@ -12,17 +14,27 @@ def _pyplot():
     return plt
 
 
-def plot_run(rec, path, title: str | None = None) -> Path:
-    """Link position, spring deflection and motor torque against time, one line per joint.
+def _label(run_label: str, joint: str, runs: dict) -> str:
+    """A line's legend entry: the joint of a single run, the run of single-joint runs, else both."""
+    if len(runs) == 1:
+        return joint
+    return run_label if all(len(r.joint_names) == 1 for r in runs.values()) else f"{run_label} {joint}"
 
-    rec: recordings.Recording; path: PNG file to write (its folder must exist). Returns the path.
+
+def plot_runs(runs: dict, path, title: str | None = None) -> Path:
+    """Link position, spring deflection and motor torque against time, one line per run and joint.
+
+    runs: ``{label: runs.Run}`` (states against ``t``, commands as steps against ``t_cmd``); path: PNG
+    file to write (its folder must exist); title: default the runs' sources. Returns the path.
     """
     plt = _pyplot()
     fig, (ax_q, ax_phi, ax_tau) = plt.subplots(3, 1, sharex=True, figsize=(8, 7))
-    for name, j in rec.joints.items():
-        ax_q.plot(j.t, j.q, label=name)
-        ax_phi.plot(j.t, j.theta - j.q, label=name)
-        ax_tau.step(j.t_cmd, j.tau_m, where="post", label=name)
+    for run_label, run in runs.items():
+        for j, joint in enumerate(run.joint_names):
+            label = _label(run_label, joint, runs)
+            ax_q.plot(run.t, run.q[:, j], label=label)
+            ax_phi.plot(run.t, run.theta[:, j] - run.q[:, j], label=label)
+            ax_tau.step(run.t_cmd, run.tau_m[:, j], where="post", label=label)
     ax_q.set_ylabel("link position q (rad)")
     ax_phi.set_ylabel("deflection theta - q (rad)")
     ax_tau.set_ylabel("motor torque (N m)")
@@ -30,7 +42,7 @@ def plot_run(rec, path, title: str | None = None) -> Path:
     for ax in (ax_q, ax_phi, ax_tau):
         ax.grid(True, alpha=0.3)
     ax_q.legend(loc="best", fontsize="small")
-    fig.suptitle(title or rec.source)
+    fig.suptitle(title or ", ".join(r.source for r in runs.values()))
     fig.tight_layout()
     fig.savefig(path, dpi=100)
     plt.close(fig)

@@ -3,7 +3,7 @@
 The counterpart of simulate.simulate for dynamics.elastic_chain.ElasticChain and
 controller.RobotController: the controller ticks every ``control_dt`` s on the sensor readings,
 its torques are held over the tick while the plant takes ``substeps`` RK4 steps. The result is
-the same simulate.SimResult every command uses.
+the same runs.Run every command uses.
 """
 from __future__ import annotations
 
@@ -16,7 +16,7 @@ import numpy as np
 from .dynamics.elastic_chain import ElasticChain, ElasticElements
 from .sample import JointSample, Reference
 from .sensors import SensorChannel
-from .simulate import SimResult
+from .runs import Run
 
 __all__ = ["Touchdown", "robot_plant", "scripted_torques", "simulate_robot", "touchdown"]
 
@@ -52,8 +52,8 @@ def scripted_torques(rows: np.ndarray, n: int):
 
 
 def simulate_robot(plant, controller, scenario, duration: float | None = None, control_dt: float = 1e-3,
-                   substeps: int = 10, sensors=None, seed: int = 0, joint_names=None) -> SimResult:
-    """Run ``scenario`` for ``duration`` s (default: the scenario's) and return the time series.
+                   substeps: int = 10, sensors=None, seed: int = 0, joint_names=None) -> Run:
+    """Run ``scenario`` for ``duration`` s (default: the scenario's) and return it as a runs.Run.
 
     Parameters
     ----------
@@ -88,9 +88,7 @@ def simulate_robot(plant, controller, scenario, duration: float | None = None, c
         tau_m[i] = plant.advance(x, tau, external, t, h, substeps)
         tau_s_out[i] = tau_s
     wall = time.perf_counter() - start
-    q, dq, theta, dtheta = (np.ascontiguousarray(states[:, :, c]) for c in range(4))
-    return SimResult(names, np.arange(ticks) * control_dt, q, dq, theta, dtheta, tau_m, tau_s_out,
-                     faults=controller.faults, control_dt=control_dt, wall_time=wall)
+    return Run.simulated(names, control_dt, states, tau_m, tau_s_out, controller.faults, wall)
 
 
 @dataclass(frozen=True)
@@ -101,13 +99,13 @@ class Touchdown:
     speed: float  # m/s: approach speed h'(t) - n . v at the tick before, the last one still free
 
 
-def touchdown(result: SimResult, links, contact) -> Touchdown | None:
-    """When and how fast ``contact``'s frame first met its plane in ``result``; None if it never
+def touchdown(run: Run, links, contact) -> Touchdown | None:
+    """When and how fast ``contact``'s frame first met its plane in ``run``; None if it never
     did or was inside it from the start."""
-    for i, t in enumerate(result.t):
-        if contact.depth(links, result.q[i], t) > 0.0:
+    for i, t in enumerate(run.t):
+        if contact.depth(links, run.q[i], t) > 0.0:
             if i == 0:
                 return None
-            t0, q0, dq0 = result.t[i - 1], result.q[i - 1], result.dq[i - 1]
+            t0, q0, dq0 = run.t[i - 1], run.q[i - 1], run.dq[i - 1]
             return Touchdown(float(t), contact.speed_at(t0) - float(contact.normal_row(links, q0) @ dq0))
     return None

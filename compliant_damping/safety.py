@@ -67,6 +67,10 @@ class Fault:
     def __str__(self) -> str:
         return f"{self.code.value}: {self.reason}"
 
+    def to_dict(self) -> dict:
+        """``{"code": ..., "reason": ...}`` for JSON."""
+        return {"code": self.code.value, "reason": self.reason}
+
 
 def _num(x: float) -> str:
     """A reading for a reason text: four significant digits, whatever its size."""

@@ -19,6 +19,7 @@ import numpy as np
 from . import analysis, scenarios, simulate
 from .controller import JointController
 from .laws import make_law
+from .metrics import joint_metrics
 
 __all__ = ["KvPoint", "sweep_decoupling_stiffness", "recommend", "log_grid"]
 
@@ -84,12 +85,12 @@ def sweep_decoupling_stiffness(ctrl_joint, sim_joint, stiffnesses, *, control_dt
         gains = dataclasses.replace(ctrl_joint.gains, decoupling_stiffness=float(kv))
         ctrl = JointController(LAW, ctrl_joint.model, gains, lim, period=control_dt)
         run = simulate.simulate([sim_joint], [ctrl], scenario, control_dt=control_dt, substeps=substeps)
-        m = simulate.metrics(run, scenario)[sim_joint.name]
+        m = joint_metrics(run, scenario)[sim_joint.name]
         res = analysis.analyze(sim_joint.plant, make_law(LAW, ctrl_joint.model, gains), sim_joint.initial_position)
         mode = res.least_damped
         # reaching a limit within 0.1 % counts as hitting it (the filter clips exactly at it)
-        inside = m["peak_abs_torque"] < 0.999 * lim.torque and m["peak_torque_rate"] < 0.999 * lim.torque_rate
-        out.append(KvPoint(float(kv), m["peak_torque_rate"], m["peak_abs_torque"], mode.damping_ratio,
+        inside = m.peak_abs_torque < 0.999 * lim.torque and m.peak_torque_rate < 0.999 * lim.torque_rate
+        out.append(KvPoint(float(kv), m.peak_torque_rate, m.peak_abs_torque, mode.damping_ratio,
                            mode.frequency_hz, mode.link_share, bool(inside and ctrl.fault is None)))
         if progress is not None:
             progress(kv)

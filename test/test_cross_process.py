@@ -39,7 +39,9 @@ pytest.importorskip("compliant_damping.nodes.controller_node", reason="the contr
 pytest.importorskip("compliant_damping.nodes.simulated_joint_node", reason="the simulated joint node does not exist yet")
 player = pytest.importorskip("compliant_damping.nodes.scenario_player", reason="the scenario player does not exist yet")
 
-from compliant_damping import config, controller, demo, scenarios, simulate  # noqa: E402
+from compliant_damping import config, controller, demo, recordings, scenarios, simulate  # noqa: E402
+from compliant_damping.metrics import joint_metrics  # noqa: E402
+from compliant_damping.runs import Run  # noqa: E402
 
 pytestmark = pytest.mark.ros
 
@@ -56,7 +58,7 @@ def _environ(pid: int) -> dict:
     return dict(item.decode().split("=", 1) for item in raw if b"=" in item)
 
 
-def run_over_ros(law: str, folder) -> simulate.SimResult:
+def run_over_ros(law: str, folder) -> Run:
     ns = f"/cdamp_cross_{os.getpid()}_{law}"
     params = demo.namespaced_file(config.bundled(), ns, folder / f"{law}.params.yaml")
     ros_args = ["--ros-args", "-r", f"__ns:={ns}", "-r", f"/clock:={ns}/clock", "-r", f"/diagnostics:={ns}/diagnostics",
@@ -88,13 +90,12 @@ def run_over_ros(law: str, folder) -> simulate.SimResult:
     finally:
         codes = {name: demo.stop(proc, 10.0) for name, proc in procs.items()}
     assert all(code == 0 for code in codes.values()), f"exit codes {codes}; logs in {folder}"
-    with np.load(folder / f"{law}.npz") as data:
-        return demo.as_result({k: data[k] for k in data.files}, DT)
+    return recordings.read(folder / f"{law}.npz")
 
 
 @pytest.fixture(scope="module")
 def over_ros(tmp_path_factory):
-    """Lazily run each law once over ROS; {law: SimResult}."""
+    """Lazily run each law once over ROS; {law: runs.Run}."""
     folder = tmp_path_factory.mktemp("cross_process")
     runs = {}
 
@@ -112,6 +113,8 @@ def test_ros_run_reproduces_the_offline_simulator(over_ros, law):
     offline = simulate.simulate(SIM.joints, controller.bank(dataclasses.replace(CTRL, law=law)),
                                 scenario, control_dt=DT, substeps=SIM.substeps, seed=SIM.seed)
     assert ros.q.shape == offline.q.shape == (round(scenario.duration / DT), 1)
+    assert ros.control_dt == pytest.approx(DT, rel=1e-12)  # the player's tick, written to the .npz
+    np.testing.assert_array_equal(ros.t_cmd, ros.t)  # lock step: one command per state, stamped alike
     assert np.max(ros.q) > SIM.joints[0].plant.stop_upper  # the link really hits the end stop
     np.testing.assert_allclose(ros.q, offline.q, rtol=0, atol=1e-9)
     np.testing.assert_allclose(ros.tau_m, offline.tau_m, rtol=0, atol=1e-9)
@@ -119,6 +122,6 @@ def test_ros_run_reproduces_the_offline_simulator(over_ros, law):
 
 def test_decoupled_damper_halves_the_impact_torque_rate_over_ros(over_ros):
     scenario = scenarios.make(SCENARIO, SIM.joints)
-    peak = {law: simulate.metrics(over_ros(law), scenario)["knee"]["peak_torque_rate"] for law in LAWS}
+    peak = {law: joint_metrics(over_ros(law), scenario)["knee"].peak_torque_rate for law in LAWS}
     print(f"peak motor-torque rate over ROS: {peak} N m/s, ratio {peak['decoupled_damper'] / peak['link_damping']:.3f}")
     assert peak["decoupled_damper"] <= 0.5 * peak["link_damping"]

@@ -10,6 +10,7 @@ import pytest
 from compliant_damping import analysis, config, model, scenarios, simulate
 from compliant_damping.controller import JointController
 from compliant_damping.laws import make_law
+from compliant_damping.metrics import joint_metrics
 
 CTRL, SIM = config.load(config.bundled())
 JOINT, SIM_JOINT = CTRL.joints[0], SIM.joints[0]
@@ -20,7 +21,7 @@ def _run(law, scenario, gains=JOINT.gains, limits=JOINT.limits, duration=None):
     ctrl = JointController(law, JOINT.model, gains, limits)
     run = simulate.simulate(SIM.joints, [ctrl], scenario, duration, control_dt=1.0 / CTRL.control_rate,
                             substeps=SIM.substeps)
-    return run, simulate.metrics(run, scenario)[JOINT.name], ctrl
+    return run, joint_metrics(run, scenario)[JOINT.name], ctrl
 
 
 def test_decoupled_damper_halves_the_impact_torque_rate():
@@ -34,10 +35,10 @@ def test_decoupled_damper_halves_the_impact_torque_rate():
     assert ctrl.fault is None
     speeds = [r.dq[np.argmax(r.q[:, 0] > SIM_JOINT.plant.stop_upper), 0] for r in (run, run_d)]
     assert speeds[0] == pytest.approx(speeds[1], rel=0.1)
-    assert decoupled["max_link_position"] > SIM_JOINT.plant.stop_upper  # it really hits the stop
-    assert decoupled["peak_torque_rate"] <= 0.5 * direct["peak_torque_rate"]
-    assert decoupled["peak_abs_torque"] < JOINT.limits.torque
-    assert decoupled["peak_torque_rate"] < JOINT.limits.torque_rate
+    assert decoupled.max_link_position > SIM_JOINT.plant.stop_upper  # it really hits the stop
+    assert decoupled.peak_torque_rate <= 0.5 * direct.peak_torque_rate
+    assert decoupled.peak_abs_torque < JOINT.limits.torque
+    assert decoupled.peak_torque_rate < JOINT.limits.torque_rate
 
 
 def test_setpoint_step_decoupled_damper():
@@ -50,8 +51,8 @@ def test_setpoint_step_decoupled_damper():
     res = analysis.analyze(SIM_JOINT.plant, make_law("decoupled_damper", JOINT.model, JOINT.gains), 0.05)
     estimate = 4.0 / res.dominant.decay_rate
     assert ctrl.fault is None
-    assert m["overshoot"] <= 0.05
-    assert m["settling_time_2pct"] is not None and m["settling_time_2pct"] <= 1.5 * estimate
+    assert m.overshoot <= 0.05
+    assert m.settling_time_2pct is not None and m.settling_time_2pct <= 1.5 * estimate
 
 
 def _energy(run):
@@ -71,13 +72,13 @@ def test_saturated_impact_stays_stable(law, link_stiffness):
     1e-6 J (a growing or limit-cycling loop would fail both)."""
     gains = dataclasses.replace(JOINT.gains, link_stiffness=link_stiffness)
     _, free, _ = _run(law, IMPACT, gains)
-    limits = dataclasses.replace(JOINT.limits, torque=0.3 * free["peak_abs_torque"])
+    limits = dataclasses.replace(JOINT.limits, torque=0.3 * free.peak_abs_torque)
     run, m, ctrl = _run(law, IMPACT, gains, limits, duration=4.0)
     assert ctrl.fault is None
     assert np.mean(np.abs(run.tau_m[:, 0]) >= limits.torque - 1e-9) > 0.5  # the limit really acts
     late = run.t >= 2.5
     assert np.max(np.abs(run.dq[late, 0])) < 1e-6
-    assert abs(m["final_link_position"] - SIM_JOINT.plant.stop_upper) < 0.01
+    assert abs(m.final_link_position - SIM_JOINT.plant.stop_upper) < 0.01
     energy = _energy(run)
     assert np.max(energy[run.t >= 1.5]) < np.max(energy[run.t < 1.5])
     assert np.ptp(energy[late]) < 1e-6

@@ -52,7 +52,7 @@ def test_pendulum_urdf_robot_equals_the_bench_joint(law):
     err_tau = np.max(np.abs(run.tau_m - bench.tau_m))
     print(f"{law}: URDF robot vs bench joint: max |q| error {err_q:.1e} rad, max |tau| error {err_tau:.1e} N m")
     assert err_q < 1e-10 and err_tau < 1e-8
-    assert run.faults == [None] and bench.faults == [None]
+    assert run.faults == (None,) and bench.faults == (None,)
 
 
 def test_a_fault_on_one_joint_puts_the_whole_robot_in_safe_mode():
@@ -119,7 +119,7 @@ def test_robot_law_switches_and_gain_ramps_equal_the_bench_joints():
                                                 CTRL.safe_mode, period=DT), _events(True))
     plant = ElasticChain(links, ElasticElements.from_joint_params([SIM.joints[0].plant]))
     run = simulate_robot(plant, robot, scenario, 1.0, DT, SIM.substeps)
-    assert robot.marks == [200, 300, 600, 750] and run.faults == [None] and bench.faults == [None]
+    assert robot.marks == [200, 300, 600, 750] and run.faults == (None,) and bench.faults == (None,)
     assert np.max(np.abs(run.tau_m - bench.tau_m)) < 1e-8
     assert np.max(np.abs(run.q - bench.q)) < 1e-10
 
@@ -138,7 +138,7 @@ def test_coupled_robot_law_switch_while_moving_is_bumpless():
     refs = [Step(0.4, 0.0, 0.05), Step(-0.3, 0.2, 0.05)]
     run = simulate_robot(plant, robot, scenarios.Scenario("switches", 0.6, x0, tuple(refs), np.zeros((0, 4))),
                          control_dt=DT)
-    assert run.faults == [None, None]
+    assert run.faults == (None, None)
     steps = np.abs(np.diff(run.tau_m, axis=0))
     assert np.max(steps) <= 1e4 * DT * (1 + 1e-12)  # the slew contract on every joint, every tick
     for k in robot.marks:

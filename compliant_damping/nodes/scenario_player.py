@@ -6,7 +6,8 @@ reference on ``link_reference`` stamped with the sim time at which each sample a
 records ``joint_states`` and ``motor_effort`` until the sim time reaches the scenario's
 duration, deactivates the controller and writes the series to an ``.npz`` file:
 ``t, q, dq, theta, dtheta, tau_s`` (states, one row per tick, columns per joint) and
-``t_cmd, tau_m`` (commands by the stamp of the state they answer). Meant for a lock-step
+``t_cmd, tau_m`` (commands by the stamp of the state they answer), ``control_dt`` (s, the tick);
+recordings.read_npz reads it back as a runs.Run. Meant for a lock-step
 simulated joint; exits 1 when the run does not finish within ``--timeout`` s of wall time.
 
 The player paces the loop, so the run does not depend on how the processes are scheduled.
@@ -110,6 +111,7 @@ class ScenarioPlayer:
         out["t"] = np.arange(ticks) * self.period_ns * 1e-9
         out["t_cmd"] = np.array(cmd_ticks) * self.period_ns * 1e-9
         out["tau_m"] = np.array([self.efforts[k] for k in cmd_ticks], dtype=float).reshape(len(cmd_ticks), -1)
+        out["control_dt"] = np.array(self.period_ns * 1e-9)
         return out
 
 
