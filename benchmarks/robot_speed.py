@@ -33,10 +33,10 @@ from pathlib import Path
 
 import numpy as np
 
-from compliant_damping.controller import stack_gains
-from compliant_damping.laws import ChainNominal, LawRunner, make_law
-from compliant_damping.robot_sim import simulate_robot
-from compliant_damping.sample import JointSample
+from compliant_damping.control.controller import stack_gains
+from compliant_damping.control.laws import ChainNominal, LawRunner, make_law
+from compliant_damping.sim.robot_sim import simulate_robot
+from compliant_damping.control.sample import JointSample
 from tick_worker import BENCH, KNEE, LEG_LOOP, TICKS, chain7, hold, leg, leg_plant, robot
 
 ROUNDS = 9

@@ -5,7 +5,7 @@
    ``decoupled_damper`` (closed loop: sensors, law, safety filter, plant). A short
    warm-up run comes first so numba compilation or cache loading is not timed.
 2. The same zero-torque 10 s run as a plain plant problem for scipy's solve_ivp
-   (model.derivative, no controller in the loop), asked for the same output: the state
+   (bench_plant.derivative, no controller in the loop), asked for the same output: the state
    at every control tick (t_eval). Accuracy is matched on that whole series: both are
    compared with a tight DOP853 reference (rtol 1e-13, atol 1e-15), the error being the
    largest deviation of any state (rad, rad/s) at any tick. For RK45 and DOP853,
@@ -28,7 +28,10 @@ import time
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from compliant_damping import config, controller, model, scenarios, simulate
+from compliant_damping.io import config
+from compliant_damping.control import controller
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.sim import scenarios, simulate
 
 DURATION = 10.0  # s simulated per timed run
 SCENARIO = "free_oscillation"
@@ -57,12 +60,12 @@ def run_solve_ivp(method: str, rtol: float, atol: float, t_eval):
     """(wall s, CPU s, states (4 n, len(t_eval))) of the zero-torque plant over DURATION s with solve_ivp."""
     _, sim = setups("zero")
     scenario = scenarios.make(SCENARIO, sim.joints)
-    params = model.pack([j.plant for j in sim.joints])
+    params = bench_plant.pack([j.plant for j in sim.joints])
     tau, ext = np.zeros(len(sim.joints)), scenario.external
     shape = scenario.initial.shape
 
     def rhs(t, y):
-        return model.derivative(params, y.reshape(shape), tau, ext, t).ravel()
+        return bench_plant.derivative(params, y.reshape(shape), tau, ext, t).ravel()
 
     start, cpu = time.perf_counter(), time.process_time()
     sol = solve_ivp(rhs, (0.0, DURATION), scenario.initial.ravel(), method=method, rtol=rtol, atol=atol,

@@ -26,21 +26,34 @@ A case is built and run once (warm-up) on its first request.
 from __future__ import annotations
 
 import dataclasses
+import importlib
 import json
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 
-from compliant_damping import config, controller, scenarios, simulate
-from compliant_damping.controller import RobotController
+import compliant_damping
 from compliant_damping.dynamics import UrdfChain, bundled_urdf
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements
-from compliant_damping.laws import ChainNominal
-from compliant_damping.references import Constant
-from compliant_damping.robot_sim import simulate_robot
-from compliant_damping.sample import JointSample, Reference
 from link_dynamics_cost import seven_joint_urdf
+
+
+LAYERED = (Path(compliant_damping.__file__).parent / "control").is_dir()  # this tree has the layer packages
+
+
+def _module(path: str):
+    """The package's module ``path`` in its layer (``control.laws``), or, in a compared commit from
+    before the layers, the flat module of the same last name (``laws``)."""
+    return importlib.import_module(f"compliant_damping.{path if LAYERED else path.rpartition('.')[2]}")
+
+
+config, controller = _module("io.config"), _module("control.controller")
+scenarios, simulate = _module("sim.scenarios"), _module("sim.simulate")
+RobotController, ChainNominal = controller.RobotController, _module("control.laws").ChainNominal
+Constant, simulate_robot = _module("control.references").Constant, _module("sim.robot_sim").simulate_robot
+JointSample, Reference = _module("control.sample").JointSample, _module("control.sample").Reference
 
 TICKS = 2000
 LEG_LOOP = 0.5  # s simulated per leg closed-loop run

@@ -12,11 +12,13 @@ from dataclasses import MISSING
 
 import numpy as np
 
-from . import (analysis, config, config_check, controller, parameter_keys, robot_analysis, robot_sim, scenarios,
-               simulate, tuning)
-from .laws import LAW_NAMES, make_law
-from .metrics import joint_metrics, to_dicts
-from .robot_section import describes_robot
+from compliant_damping.analysis import linear, robot_linear, tuning
+from compliant_damping.io import config, config_check, parameter_keys
+from compliant_damping.control import controller
+from compliant_damping.sim import robot_sim, scenarios, simulate
+from compliant_damping.control.laws import LAW_NAMES, make_law
+from compliant_damping.io.metrics import joint_metrics, to_dicts
+from compliant_damping.io.robot_section import describes_robot
 
 
 def _load(args):
@@ -87,7 +89,7 @@ def cmd_simulate(args) -> int:
 
 def cmd_demo(args) -> int:
     """End-stop impact over ROS (lock step) with three laws, compared with the offline simulator."""
-    from . import demo
+    from compliant_damping import demo
     try:
         summary = demo.run(args.config, args.out)
     except demo.DemoError as err:
@@ -159,7 +161,7 @@ def cmd_analyze(args) -> int:
         return _analyze_robot(args, ctrl, sim)
     cj, sj = _joint(args, ctrl, sim)
     q_d = sj.initial_position if args.setpoint is None else args.setpoint[0]
-    res = analysis.analyze(sj.plant, make_law(ctrl.law, cj.model, cj.gains), q_d)
+    res = linear.analyze(sj.plant, make_law(ctrl.law, cj.model, cj.gains), q_d)
     if args.json:
         print(json.dumps({
             "law": ctrl.law, "joint": cj.name, "setpoint": q_d,
@@ -186,11 +188,11 @@ def _analyze_robot(args, ctrl, sim) -> int:
         raise ValueError("joint: a robot with coupled links is analysed as a whole; drop --joint")
     q_d = _setpoint(args, sim)
     law = make_law(ctrl.law, controller.chain_nominal(ctrl), controller.stack_gains([j.gains for j in ctrl.joints]))
-    lin = robot_analysis.linearize_robot(robot_sim.robot_plant(sim), law, q_d)
-    modes = robot_analysis.robot_modes(lin)
+    lin = robot_linear.linearize_robot(robot_sim.robot_plant(sim), law, q_d)
+    modes = robot_linear.robot_modes(lin)
     poles = np.linalg.eigvals(lin.a)
     least = min(modes, key=lambda m: m.damping_ratio)
-    stiffness = robot_analysis.rendered_link_stiffness(lin)
+    stiffness = robot_linear.rendered_link_stiffness(lin)
     stable = bool(np.all(poles.real < 0.0))
     if args.json:
         print(json.dumps({
@@ -217,7 +219,7 @@ def cmd_tune(args) -> int:
     """Sweep k_v of decoupled_damper: impact torque rate and peak vs the least-damped mode; recommend one."""
     from tqdm import tqdm
 
-    from . import plots
+    from compliant_damping.io import plots
     ctrl, sim = _load(args)
     cj, sj = _joint(args, ctrl, sim)
     grid = tuning.log_grid(args.kv_min, args.kv_max, args.points)
@@ -260,7 +262,7 @@ def cmd_report(args) -> int:
     """Metrics table, report.json and a PNG per run for recorded runs (CSV or rosbag2)."""
     from pathlib import Path
 
-    from . import plots, recordings
+    from compliant_damping.io import plots, recordings
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     report, stems = {}, set()

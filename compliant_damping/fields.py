@@ -1,6 +1,6 @@
 """Parameter fields: dataclass fields that carry their unit, validity check and meaning.
 
-``config.py`` validates files and run-time changes from this metadata, and the nodes
+``io/config.py`` validates files and run-time changes from this metadata, and the nodes
 declare their ROS parameters from it, so a key is described in one place only.
 """
 from __future__ import annotations

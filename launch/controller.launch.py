@@ -6,7 +6,7 @@ Launch arguments:
 
 ``params_file`` (required)
     Parameter file with a ``damping_controller`` section; start from the bundled
-    ``config/hardware_template.yaml``. Checked with compliant_damping.config before the node starts.
+    ``config/hardware_template.yaml``. Checked with compliant_damping.io.config before the node starts.
 ``layer_file`` (default: none)
     A second file layered over ``params_file`` key by key, as with a second ``--params-file``
     (e.g. one of ``config/laws/*.yaml``).
@@ -41,7 +41,7 @@ from launch_ros.event_handlers import OnStateTransition
 from launch_ros.events.lifecycle import ChangeState
 from lifecycle_msgs.msg import Transition
 
-from compliant_damping import config
+from compliant_damping.io import config
 
 PACKAGE = "compliant_damping"
 

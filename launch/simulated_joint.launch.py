@@ -28,7 +28,7 @@ from launch.substitutions import LaunchConfiguration, PathJoinSubstitution
 from launch_ros.actions import Node
 from launch_ros.substitutions import FindPackageShare
 
-from compliant_damping import config
+from compliant_damping.io import config
 
 PACKAGE = "compliant_damping"
 

@@ -23,7 +23,7 @@ from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray
 from std_srvs.srv import Trigger
 
-from compliant_damping import config
+from compliant_damping.io import config
 from compliant_damping.nodes.controller_node import ControllerNode
 from compliant_damping.nodes.simulated_joint_node import SimulatedJointNode
 

@@ -1,4 +1,4 @@
-"""analysis.py against outside references: hand-derived characteristic polynomials (numpy.roots),
+"""linear.py against outside references: hand-derived characteristic polynomials (numpy.roots),
 python-control state-space models built from the design notes' target closed loop, and handbook
 formulas (two-mass resonance, series springs)."""
 import dataclasses
@@ -9,8 +9,9 @@ import numpy as np
 import pytest
 from scipy.optimize import linear_sum_assignment
 
-from compliant_damping import analysis, config
-from compliant_damping.laws import make_law
+from compliant_damping.analysis import linear
+from compliant_damping.io import config
+from compliant_damping.control.laws import make_law
 
 CTRL, SIM = config.load(config.bundled())
 JOINT = CTRL.joints[0]
@@ -25,7 +26,7 @@ K, D, D_L, K_V = G.motor_stiffness, G.motor_damping, G.link_damping, G.decouplin
 
 
 def _poles(law_name):
-    return analysis.analyze(PLANT, make_law(law_name, JOINT.model, G), Q_D).poles
+    return linear.analyze(PLANT, make_law(law_name, JOINT.model, G), Q_D).poles
 
 
 def _max_rel_error(got, want):
@@ -90,7 +91,7 @@ def test_two_mass_resonance_without_control():
     """Reference: free two-mass resonance w^2 = k (1/M + 1/B) (handbook formula, from memory);
     gravity off, zero torque: one pole pair at +-j w, undamped, plus a rigid-body double pole at 0."""
     plant = dataclasses.replace(PLANT, gravity_torque=0.0)
-    res = analysis.analyze(plant, make_law("zero", JOINT.model, G), 0.0)
+    res = linear.analyze(plant, make_law("zero", JOINT.model, G), 0.0)
     w = math.sqrt(K_S * (1.0 / M + 1.0 / B))
     top = max(res.modes, key=lambda m: m.natural_frequency)
     assert top.natural_frequency == pytest.approx(w, rel=1e-6)
@@ -101,14 +102,14 @@ def test_two_mass_resonance_without_control():
 def test_static_stiffness_series_springs_motor_pd():
     """Reference: series springs K_theta and k, kK/(k+K), plus the gravity slope g'(q_d) in parallel
     (handbook formula). The DC link admittance is its inverse."""
-    res = analysis.analyze(PLANT, make_law("motor_pd", JOINT.model, G), Q_D)
+    res = linear.analyze(PLANT, make_law("motor_pd", JOINT.model, G), Q_D)
     want = K_S * K / (K_S + K) + G1
     assert res.static_link_stiffness == pytest.approx(want, rel=1e-6)
-    assert abs(analysis.link_admittance(res.linear, 0.0)[0]) == pytest.approx(1.0 / want, rel=1e-6)
+    assert abs(linear.link_admittance(res.linear, 0.0)[0]) == pytest.approx(1.0 / want, rel=1e-6)
 
 
 def test_dominant_and_least_damped_modes_are_defined_as_documented():
-    res = analysis.analyze(PLANT, make_law("decoupled_damper", JOINT.model, G), Q_D)
+    res = linear.analyze(PLANT, make_law("decoupled_damper", JOINT.model, G), Q_D)
     assert res.dominant.decay_rate == min(-p.real for p in res.poles)
     assert res.least_damped.damping_ratio == min(m.damping_ratio for m in res.modes)
     assert res.stable
@@ -117,8 +118,8 @@ def test_dominant_and_least_damped_modes_are_defined_as_documented():
 
 
 def test_equilibrium_outside_stops_is_refused():
-    with pytest.raises(analysis.AnalysisError, match="q_d"):
-        analysis.analyze(PLANT, make_law("motor_pd", JOINT.model, G), PLANT.stop_upper + 0.1)
+    with pytest.raises(linear.AnalysisError, match="q_d"):
+        linear.analyze(PLANT, make_law("motor_pd", JOINT.model, G), PLANT.stop_upper + 0.1)
 
 
 def test_virtual_mass_and_shaped_motor_inertia_match_python_control():
@@ -127,7 +128,7 @@ def test_virtual_mass_and_shaped_motor_inertia_match_python_control():
     as a python-control ss with states [q, q', eta, eta', x, x']; poles agree to 1e-6 relative."""
     m_v, b_d = 0.02, 0.08
     gains = dataclasses.replace(G, virtual_mass=m_v, motor_inertia_target=b_d)
-    got = analysis.analyze(PLANT, make_law("decoupled_damper", JOINT.model, gains), Q_D).poles
+    got = linear.analyze(PLANT, make_law("decoupled_damper", JOINT.model, gains), Q_D).poles
     a = np.array([[0, 1, 0, 0, 0, 0],
                   [-(K_S + G1 + K_V) / M, 0, K_S / M, 0, K_V / M, 0],
                   [0, 0, 0, 1, 0, 0],
@@ -141,8 +142,8 @@ def test_virtual_mass_and_shaped_motor_inertia_match_python_control():
 def test_link_admittance_high_frequency_is_the_link_inertia():
     """Reference: far above every closed-loop mode the link is a free inertia, q/tau = -1/(M w^2)
     (mass impedance, handbook formula); checked at 2 kHz within 1 %."""
-    res = analysis.analyze(PLANT, make_law("decoupled_damper", JOINT.model, G), Q_D)
+    res = linear.analyze(PLANT, make_law("decoupled_damper", JOINT.model, G), Q_D)
     w = 2.0 * math.pi * 2000.0
-    y = analysis.link_admittance(res.linear, [2000.0])[0]
+    y = linear.link_admittance(res.linear, [2000.0])[0]
     assert y.real == pytest.approx(-1.0 / (M * w * w), rel=0.01)
     assert abs(y.imag) < 0.01 * abs(y.real)

@@ -22,13 +22,13 @@ from scipy.integrate import solve_ivp
 
 pytest.importorskip("pinocchio", reason="URDF chains need Pinocchio (the pin package)")
 
-from compliant_damping import config  # noqa: E402
-from compliant_damping.controller import stack_gains  # noqa: E402
+from compliant_damping.io import config  # noqa: E402
+from compliant_damping.control.controller import stack_gains  # noqa: E402
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements  # noqa: E402
 from compliant_damping.dynamics.links import IndependentLinks  # noqa: E402
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf  # noqa: E402
-from compliant_damping.laws import LAW_NAMES, ChainNominal, Gains, LawRunner, make_law  # noqa: E402
-from compliant_damping.sample import JointSample  # noqa: E402
+from compliant_damping.control.laws import LAW_NAMES, ChainNominal, Gains, LawRunner, make_law  # noqa: E402
+from compliant_damping.control.sample import JointSample  # noqa: E402
 
 CTRL, SIM = config.load(config.bundled())
 KNEE = CTRL.joints[0]

@@ -12,8 +12,9 @@ import pytest
 import yaml
 from scipy.integrate import solve_ivp
 
-from compliant_damping import cli, config, config_check
-from compliant_damping.config import CONTROLLER_NODE, SIM_NODE
+from compliant_damping import cli
+from compliant_damping.io import config, config_check
+from compliant_damping.io.config import CONTROLLER_NODE, SIM_NODE
 
 BASE = config.read(config.bundled())
 BUNDLED = sorted((config.share_dir() / "config").glob("*.yaml"))

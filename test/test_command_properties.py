@@ -1,6 +1,6 @@
 """command_properties.check_commands on hand-made streams (values worked out by hand below)."""
 from command_properties import Command, check_commands
-from compliant_damping.safety import Limits
+from compliant_damping.control.safety import Limits
 
 LIMITS = {"m": Limits(torque=10.0, torque_rate=1000.0, deflection=0.1)}  # 1 N m per ms
 

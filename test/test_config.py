@@ -4,8 +4,8 @@ import copy
 import pytest
 import yaml
 
-from compliant_damping import config, parameter_keys
-from compliant_damping.config import CONTROLLER_NODE, SIM_NODE, ConfigError
+from compliant_damping.io import config, parameter_keys
+from compliant_damping.io.config import CONTROLLER_NODE, SIM_NODE, ConfigError
 
 BASE = config.read(config.bundled())
 

@@ -9,8 +9,8 @@ from pathlib import Path
 
 import pytest
 
-from compliant_damping import config
-from compliant_damping.config import CONTROLLER_NODE, SIM_NODE, ConfigError
+from compliant_damping.io import config
+from compliant_damping.io.config import CONTROLLER_NODE, SIM_NODE, ConfigError
 
 LAW_LAYERS = sorted((config.share_dir() / "config" / "laws").glob("*.yaml"))
 

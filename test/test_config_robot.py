@@ -16,8 +16,9 @@ import numpy as np
 import pytest
 import yaml
 
-from compliant_damping import cli, config
-from compliant_damping.config import CONTROLLER_NODE, SIM_NODE, ConfigError
+from compliant_damping import cli
+from compliant_damping.io import config
+from compliant_damping.io.config import CONTROLLER_NODE, SIM_NODE, ConfigError
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf
 
 REPO_URDF = Path(__file__).resolve().parent.parent / "urdf"  # the bundled files, found without the package

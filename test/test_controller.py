@@ -9,11 +9,12 @@ from dataclasses import replace
 
 import pytest
 
-from compliant_damping import config, scenarios, simulate
-from compliant_damping.controller import JointController, blend_gains
-from compliant_damping.laws import Gains, LinkDamping, NominalModel
-from compliant_damping.safety import Limits
-from compliant_damping.sample import JointSample
+from compliant_damping.io import config
+from compliant_damping.sim import scenarios, simulate
+from compliant_damping.control.controller import JointController, blend_gains
+from compliant_damping.control.laws import Gains, LinkDamping, NominalModel
+from compliant_damping.control.safety import Limits
+from compliant_damping.control.sample import JointSample
 
 CTRL, SIM = config.load(config.bundled())
 JOINT = CTRL.joints[0]

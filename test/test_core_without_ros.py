@@ -16,10 +16,14 @@ class NoRclpy:
 
 sys.meta_path.insert(0, NoRclpy())
 import compliant_damping
-core = sorted(m.name for m in pkgutil.iter_modules(compliant_damping.__path__) if m.name != "nodes")
+core = sorted(m.name[len("compliant_damping."):]
+              for m in pkgutil.walk_packages(compliant_damping.__path__, "compliant_damping.")
+              if not m.name.startswith("compliant_damping.nodes"))
 for name in core:
     importlib.import_module(f"compliant_damping.{name}")
-from compliant_damping import config, controller, scenarios, simulate
+from compliant_damping.io import config
+from compliant_damping.control import controller
+from compliant_damping.sim import scenarios, simulate
 ctrl, sim = config.load(config.bundled())
 scenario = scenarios.make("setpoint_step", sim.joints)
 result = simulate.simulate(sim.joints, controller.bank(ctrl), scenario, 0.3)
@@ -31,11 +35,11 @@ print(json.dumps({"core": core, "rclpy_loaded": "rclpy" in sys.modules,
 KERNEL_RUN = """
 import json
 import numpy as np
-from compliant_damping import model
+from compliant_damping.dynamics import bench_plant
 x = np.array([[0.0, 0.0, 0.01, 0.0]])
-params = model.pack([model.JointParams(link_inertia=0.2, motor_inertia=0.1, spring_stiffness=100.0)])
-model.advance(x, params, np.zeros(1), model.NO_EXTERNAL, 0.0, 1e-4, 10)
-stats = model.advance.stats
+params = bench_plant.pack([bench_plant.JointParams(link_inertia=0.2, motor_inertia=0.1, spring_stiffness=100.0)])
+bench_plant.advance(x, params, np.zeros(1), bench_plant.NO_EXTERNAL, 0.0, 1e-4, 10)
+stats = bench_plant.advance.stats
 print(json.dumps({"hits": sum(stats.cache_hits.values()), "misses": sum(stats.cache_misses.values()),
                   "path": str(stats.cache_path)}))
 """
@@ -50,7 +54,8 @@ def _run(code):
 def test_core_imports_and_simulates_without_rclpy():
     report = _run(WITHOUT_RCLPY)
     assert not report["rclpy_loaded"]
-    assert {"model", "laws", "safety", "controller", "simulate", "config", "cli"} <= set(report["core"])
+    assert {"dynamics.bench_plant", "control.laws", "control.safety", "control.controller", "sim.simulate",
+            "io.config", "cli"} <= set(report["core"])
     assert report["faults"] == [None]
     assert 0.0 < report["q_end"] < 0.1  # the 0.05 rad set-point step was followed, roughly
 

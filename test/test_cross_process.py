@@ -39,9 +39,12 @@ pytest.importorskip("compliant_damping.nodes.controller_node", reason="the contr
 pytest.importorskip("compliant_damping.nodes.simulated_joint_node", reason="the simulated joint node does not exist yet")
 player = pytest.importorskip("compliant_damping.nodes.scenario_player", reason="the scenario player does not exist yet")
 
-from compliant_damping import config, controller, demo, recordings, scenarios, simulate  # noqa: E402
-from compliant_damping.metrics import joint_metrics  # noqa: E402
-from compliant_damping.runs import Run  # noqa: E402
+from compliant_damping.io import config, recordings  # noqa: E402
+from compliant_damping.control import controller
+from compliant_damping import demo
+from compliant_damping.sim import scenarios, simulate
+from compliant_damping.io.metrics import joint_metrics  # noqa: E402
+from compliant_damping.io.runs import Run  # noqa: E402
 
 pytestmark = pytest.mark.ros
 

@@ -1,7 +1,8 @@
 """Pure parts of `cdamp demo`: the loopback guard and the parameter file it hands to namespaced nodes."""
 import pytest
 
-from compliant_damping import config, demo
+from compliant_damping.io import config
+from compliant_damping import demo
 
 
 @pytest.mark.parametrize("env", [

@@ -2,7 +2,7 @@
 
 References:
 
-* the one-joint plant (model.advance, checked in test_model.py against the two-mass resonance
+* the one-joint plant (bench_plant.advance, checked in test_bench_plant.py against the two-mass resonance
   formula, energy conservation and scipy's solve_ivp): the pendulum URDF with the bench knee's
   numbers must give the same trajectory with friction, end stops and a torque profile;
 * conservation of energy (kinetic + spring + gravity) of a free, undamped elastic chain;
@@ -18,7 +18,8 @@ from scipy.integrate import solve_ivp
 
 pytest.importorskip("pinocchio", reason="URDF chains need Pinocchio (the pin package)")
 
-from compliant_damping import config, model  # noqa: E402
+from compliant_damping.io import config  # noqa: E402
+from compliant_damping.dynamics import bench_plant
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements, PlaneContact  # noqa: E402
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf  # noqa: E402
 
@@ -36,13 +37,13 @@ def test_pendulum_urdf_plant_equals_the_bench_plant():
     """Friction, spring damping, an end stop hit and a torque profile: 1 s at 10 kHz, to 1e-10 rad."""
     chain = ElasticChain(UrdfChain.from_file(bundled_urdf("pendulum.urdf"), ["knee"]),
                          ElasticElements.from_joint_params([KNEE]))
-    params = model.pack([KNEE])
+    params = bench_plant.pack([KNEE])
     x_bench = np.array([[0.7, 1.5, 0.72, 1.4]])
     x_chain = x_bench.copy()
     h, substeps = 1e-4, 10
     for k in range(1000):
         tau = np.array([3.0 * np.sin(7.0 * k * 1e-3)])
-        model.advance(x_bench, params, tau, model.NO_EXTERNAL, k * 1e-3, h, substeps)
+        bench_plant.advance(x_bench, params, tau, bench_plant.NO_EXTERNAL, k * 1e-3, h, substeps)
         chain.advance(x_chain, tau, _no_external(1), k * 1e-3, h, substeps)
     assert np.max(np.abs(x_chain - x_bench)) < 1e-10
 

@@ -33,7 +33,8 @@ from rclpy.qos import QoSProfile, ReliabilityPolicy  # noqa: E402
 from sensor_msgs.msg import JointState  # noqa: E402
 
 from command_properties import Command, check_commands  # noqa: E402
-from compliant_damping import config, demo  # noqa: E402
+from compliant_damping.io import config  # noqa: E402
+from compliant_damping import demo
 from compliant_damping.nodes import scenario_player as player  # noqa: E402
 from lifecycle_msgs.msg import Transition  # noqa: E402
 

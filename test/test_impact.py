@@ -1,16 +1,19 @@
 """The package's claim on the bundled joint and scenarios: the decoupled damper avoids the motor-torque
 spike of direct link damping at an end-stop impact, regulates a set-point step well, and every law
 with link damping stays stable when the torque saturates. References: closed-loop poles from
-analysis.py for the settling time (4 / (zeta w_n), common practice), model.energy for stability."""
+linear.py for the settling time (4 / (zeta w_n), common practice), bench_plant.energy for stability."""
 import dataclasses
 
 import numpy as np
 import pytest
 
-from compliant_damping import analysis, config, model, scenarios, simulate
-from compliant_damping.controller import JointController
-from compliant_damping.laws import make_law
-from compliant_damping.metrics import joint_metrics
+from compliant_damping.analysis import linear
+from compliant_damping.io import config
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.sim import scenarios, simulate
+from compliant_damping.control.controller import JointController
+from compliant_damping.control.laws import make_law
+from compliant_damping.io.metrics import joint_metrics
 
 CTRL, SIM = config.load(config.bundled())
 JOINT, SIM_JOINT = CTRL.joints[0], SIM.joints[0]
@@ -48,7 +51,7 @@ def test_setpoint_step_decoupled_damper():
     linearisation does not). Measured: overshoot 0.005 %, settling 0.37 s vs estimate 0.31 s."""
     scenario = scenarios.make("setpoint_step", SIM.joints)
     _, m, ctrl = _run("decoupled_damper", scenario)
-    res = analysis.analyze(SIM_JOINT.plant, make_law("decoupled_damper", JOINT.model, JOINT.gains), 0.05)
+    res = linear.analyze(SIM_JOINT.plant, make_law("decoupled_damper", JOINT.model, JOINT.gains), 0.05)
     estimate = 4.0 / res.dominant.decay_rate
     assert ctrl.fault is None
     assert m.overshoot <= 0.05
@@ -56,9 +59,9 @@ def test_setpoint_step_decoupled_damper():
 
 
 def _energy(run):
-    params = model.pack([SIM_JOINT.plant])
+    params = bench_plant.pack([SIM_JOINT.plant])
     states = np.stack([run.q[:, 0], run.dq[:, 0], run.theta[:, 0], run.dtheta[:, 0]], axis=1)
-    return np.array([model.energy(params, s[None, :])[0] for s in states])
+    return np.array([bench_plant.energy(params, s[None, :])[0] for s in states])
 
 
 @pytest.mark.parametrize("law,link_stiffness", [("link_damping", 0.0), ("decoupled_damper", 0.0),
@@ -67,7 +70,7 @@ def test_saturated_impact_stays_stable(law, link_stiffness):
     """end_stop_impact with the torque limit at 30 % of the law's unsaturated peak (the command is
     saturated about 75 % of the time, measured). Stable means: no fault, the link comes to rest
     against the stop (|q'| < 1e-6 rad/s from 2.5 s; measured below 1e-12), and the stored energy
-    (model.energy) does not grow: after the impact (t >= 1.5 s, the reference stops at 1.05 s) it
+    (bench_plant.energy) does not grow: after the impact (t >= 1.5 s, the reference stops at 1.05 s) it
     stays below its peak during the approach and impact, and from 2.5 s to 4 s it is constant within
     1e-6 J (a growing or limit-cycling loop would fail both)."""
     gains = dataclasses.replace(JOINT.gains, link_stiffness=link_stiffness)

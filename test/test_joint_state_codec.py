@@ -4,11 +4,12 @@ import math
 import numpy as np
 import pytest
 
-from compliant_damping import config, model
-from compliant_damping.joint_state_codec import (ReferenceSchedule, Rejection, StateDecoder, Stamp, StampOrder,
-                                                 TickClock, encode_states, pick_values)
-from compliant_damping.plant import Plant
-from compliant_damping.sample import JointSample
+from compliant_damping.io import config
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.io.joint_state_codec import (ReferenceSchedule, Rejection, StateDecoder, Stamp, StampOrder,
+                                                    TickClock, encode_states, pick_values)
+from compliant_damping.sim.plant import Plant
+from compliant_damping.control.sample import JointSample
 
 CTRL, SIM = config.load(config.bundled())
 JOINT_LIMITS = CTRL.joints[0].limits
@@ -103,7 +104,7 @@ def test_plant_impulse_changes_link_momentum_by_the_impulse():
     plant = Plant(SIM)
     impulse, m = 0.01, SIM.joints[0].plant.link_inertia
     plant.add_impulse(0, impulse, plant.t)
-    plant.advance([model.gravity(plant.params[0], plant.x[0, 0])])
+    plant.advance([bench_plant.gravity(plant.params[0], plant.x[0, 0])])
     assert plant.x[0, 1] == pytest.approx(impulse / m, rel=0.02)
     assert len(plant.external) == 0  # the pulse is over
 

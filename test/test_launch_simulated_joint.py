@@ -39,7 +39,7 @@ from rcl_interfaces.srv import GetParameters  # noqa: E402
 from rclpy.qos import QoSProfile, qos_profile_sensor_data  # noqa: E402
 from sensor_msgs.msg import JointState  # noqa: E402
 
-from compliant_damping import config  # noqa: E402
+from compliant_damping.io import config  # noqa: E402
 
 LAUNCH_FILE = Path(__file__).resolve().parent.parent / "launch" / "simulated_joint.launch.py"
 RUN = uuid.uuid4().hex[:8]

@@ -1,7 +1,7 @@
 """Control laws against outside references: a direct scipy solve_ivp of the design notes' target
 closed loop (structure preservation), hand-derived static stiffness (series springs, a handbook
 formula, and its correction for the model-based link acceleration), and robustness to a wrong
-nominal model (settling in simulation, poles from analysis.py)."""
+nominal model (settling in simulation, poles from linear.py)."""
 import dataclasses
 import math
 
@@ -9,13 +9,16 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from compliant_damping import analysis, config, model, scenarios, simulate
-from compliant_damping.controller import JointController, bank
-from compliant_damping.laws import NominalModel, make_law
-from compliant_damping.references import Constant
-from compliant_damping.sample import JointSample
-from compliant_damping.safety import FaultCode, Limits
-from compliant_damping.scenarios import Scenario
+from compliant_damping.analysis import linear
+from compliant_damping.io import config
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.sim import scenarios, simulate
+from compliant_damping.control.controller import JointController, bank
+from compliant_damping.control.laws import NominalModel, make_law
+from compliant_damping.control.references import Constant
+from compliant_damping.control.sample import JointSample
+from compliant_damping.control.safety import FaultCode, Limits
+from compliant_damping.sim.scenarios import Scenario
 
 CTRL, SIM = config.load(config.bundled())
 JOINT, SIM_JOINT = CTRL.joints[0], SIM.joints[0]
@@ -48,7 +51,7 @@ def _link_damping_target_error(control_dt):
     d_l, kk, dd = GAINS.link_damping, GAINS.motor_stiffness, GAINS.motor_damping
     q_d = 0.1
     eta_d = q_d + g(q_d) / k
-    q0, th0 = 0.0, model.equilibrium_motor_position(model.pack([IDEAL])[0], 0.0) + 0.02
+    q0, th0 = 0.0, bench_plant.equilibrium_motor_position(bench_plant.pack([IDEAL])[0], 0.0) + 0.02
     scenario = Scenario("deflected", 0.5, np.array([[q0, 0.0, th0, 0.0]]), (Constant(q_d),), np.zeros((0, 4)))
     run, ctrl = _run(IDEAL, EXACT, "link_damping", GAINS, scenario, control_dt=control_dt,
                      substeps=max(1, round(1e-4 / control_dt)))
@@ -81,11 +84,11 @@ def _static_shift(law, nominal, gains, tau=0.5):
     scenario = Scenario("push", 3.0, np.zeros((1, 4)), (Constant(0.0),), np.array([[0.0, 0.5, math.inf, tau]]))
     run, ctrl = _run(plant, nominal, law, gains, scenario, limits=JOINT.limits)
     assert ctrl.fault is None and np.max(np.abs(run.dq[-100:, 0])) < 1e-4  # at rest (shift ~2e-3 rad)
-    return run.q[-1, 0], analysis.analyze(plant, make_law(law, nominal, gains)).static_link_stiffness
+    return run.q[-1, 0], linear.analyze(plant, make_law(law, nominal, gains)).static_link_stiffness
 
 
 def test_rendered_stiffness_motor_pd_series_springs():
-    """Reference: springs in series, k K / (k + K) (handbook formula), within 1 %; analysis.py's
+    """Reference: springs in series, k K / (k + K) (handbook formula), within 1 %; linear.py's
     DC-gain stiffness agrees with the simulated shift."""
     k, kk, tau = IDEAL.spring_stiffness, GAINS.motor_stiffness, 0.5
     nominal = dataclasses.replace(EXACT, gravity_torque=0.0)
@@ -136,12 +139,12 @@ LAWS = ("motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
 @pytest.mark.parametrize("law", LAWS)
 def test_mismatched_model_still_settles(law, capsys):
     """Nominal model 20 % off the plant (bundled joint with friction): the set-point step still comes
-    to rest near the target, and the linearised loop (analysis.py) is stable. Prints how the least-
+    to rest near the target, and the linearised loop (linear.py) is stable. Prints how the least-
     damped mode moves (pytest -s). Rest = no fault, |q'| < 1e-3 rad/s and q spread < 1e-5 rad in
     the last 0.3 s; "near" = within 2 mrad of the 0.05 rad target (gravity compensation is off by up
     to 20 %, 0.4 N m, over about 150 N m/rad of stiffness: ~3e-3 rad at most, less in practice)."""
     scenario = scenarios.make("setpoint_step", SIM.joints)
-    base = analysis.analyze(SIM_JOINT.plant, make_law(law, JOINT.model, GAINS), 0.05)
+    base = linear.analyze(SIM_JOINT.plant, make_law(law, JOINT.model, GAINS), 0.05)
     rows = [f"{law}: nominal model exact: least-damped {base.least_damped.frequency_hz:.2f} Hz "
             f"zeta {base.least_damped.damping_ratio:.3f}, dominant decay {base.dominant.decay_rate:.1f} 1/s"]
     for name, factors in MISMATCH.items():
@@ -151,7 +154,7 @@ def test_mismatched_model_still_settles(law, capsys):
         assert ctrl.fault is None, name
         assert np.max(np.abs(dq)) < 1e-3 and np.ptp(q) < 1e-5, name
         assert abs(q[-1] - 0.05) < 2e-3, name
-        res = analysis.analyze(SIM_JOINT.plant, make_law(law, nominal, GAINS), 0.05)
+        res = linear.analyze(SIM_JOINT.plant, make_law(law, nominal, GAINS), 0.05)
         assert res.stable, name
         rows.append(f"  {name:<30} least-damped {res.least_damped.frequency_hz:5.2f} Hz "
                     f"zeta {res.least_damped.damping_ratio:.3f}, dominant decay {res.dominant.decay_rate:5.1f} 1/s")

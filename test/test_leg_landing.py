@@ -26,7 +26,7 @@ import pytest
 pytest.importorskip("pinocchio", reason="URDF chains need Pinocchio (the pin package)")
 
 from compliant_damping import cli  # noqa: E402
-from compliant_damping.parameter_files import share_dir  # noqa: E402
+from compliant_damping.io.parameter_files import share_dir  # noqa: E402
 
 LEG = str(share_dir() / "config" / "compliant_leg.yaml")
 LINK_DAMPING = ["--layer", str(share_dir() / "config" / "leg_laws" / "link_damping.yaml")]

@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from compliant_damping import config
-from compliant_damping.dynamics import IndependentLinks, LinkDynamics, RobotModelError, UrdfChain, bundled_urdf
+from compliant_damping.io import config
+from compliant_damping.dynamics import bundled_urdf, IndependentLinks, LinkDynamics, RobotModelError, UrdfChain
 
 pin = pytest.importorskip("pinocchio")  # pinned in requirements-common.txt; only a bare install lacks it
 
@@ -302,7 +302,7 @@ class NoPinocchio:
         return None
 
 sys.meta_path.insert(0, NoPinocchio())
-from compliant_damping.dynamics import IndependentLinks, UrdfChain, bundled_urdf
+from compliant_damping.dynamics import bundled_urdf, IndependentLinks, UrdfChain
 print(IndependentLinks([0.25], [2.0], [0.0]).forward([0.5], [0.0], [1.0])[0])
 try:
     UrdfChain.from_file(bundled_urdf("pendulum.urdf"), ["knee"])

@@ -18,8 +18,8 @@ from rosgraph_msgs.msg import Clock
 from sensor_msgs.msg import JointState
 
 from command_properties import Command, check_commands
-from compliant_damping import config
-from compliant_damping.safety import FaultCode
+from compliant_damping.io import config
+from compliant_damping.control.safety import FaultCode
 from node_harness import ros, seconds, stamp  # noqa: F401 (ros is a fixture)
 from test_nodes_safety import BUNDLED, PERIOD, TIMEOUT, _active_controller, _answer, _set_clock, _state, _tick
 

@@ -14,8 +14,8 @@ import pytest
 import yaml
 from rclpy.parameter import Parameter
 
-from compliant_damping import config, parameter_keys
-from compliant_damping.model import LINK_KEYS
+from compliant_damping.io import config, parameter_keys
+from compliant_damping.dynamics.bench_plant import LINK_KEYS
 from compliant_damping.nodes import params
 from compliant_damping.nodes.controller_node import ControllerNode
 from compliant_damping.nodes.simulated_joint_node import SimulatedJointNode

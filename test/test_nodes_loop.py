@@ -1,7 +1,7 @@
 """Both nodes in one executor (lock step, bundled parameters): closed-loop behaviour over ROS.
 
 Checked against the offline simulator (simulate.simulate on the same file and scenario) and
-the closed-loop poles of analysis.analyze (cross-checked there with scipy.linalg.eig).
+the closed-loop poles of linear.analyze (cross-checked there with scipy.linalg.eig).
 """
 import math
 
@@ -10,7 +10,10 @@ import pytest
 from rclpy.parameter import Parameter
 from sensor_msgs.msg import JointState
 
-from compliant_damping import analysis, config, controller, laws, parameter_keys, scenarios, simulate
+from compliant_damping.analysis import linear
+from compliant_damping.io import config, parameter_keys
+from compliant_damping.control import controller, laws
+from compliant_damping.sim import scenarios, simulate
 from node_harness import DOC, ros, seconds, stamp  # noqa: F401 (ros is a fixture)
 
 pytestmark = pytest.mark.ros
@@ -64,7 +67,7 @@ def test_setpoint_settles_like_dominant_pole_and_matches_offline(ros):
     outside = np.nonzero((offline.t >= STEP_AT) & (np.abs(q - target) > 0.01))[0]
     settling = offline.t[outside[-1] + 1] - STEP_AT
     joint = ctrl_setup.joints[0]
-    sigma = analysis.analyze(sim_setup.joints[0].plant, laws.make_law("decoupled_damper", joint.model, joint.gains),
+    sigma = linear.analyze(sim_setup.joints[0].plant, laws.make_law("decoupled_damper", joint.model, joint.gains),
                              target).dominant.decay_rate
     estimate = math.log(STEP / 0.01) / sigma
     print(f"settling to 0.01 rad: {settling:.3f} s; dominant pole -{sigma:.2f} 1/s gives {estimate:.3f} s")

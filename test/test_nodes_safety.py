@@ -9,8 +9,8 @@ import math
 import pytest
 from sensor_msgs.msg import JointState
 
-from compliant_damping import config
-from compliant_damping.safety import Fault, FaultCode
+from compliant_damping.io import config
+from compliant_damping.control.safety import Fault, FaultCode
 from node_harness import DOC, ros, seconds, stamp  # noqa: F401 (ros is a fixture)
 from rosgraph_msgs.msg import Clock
 

@@ -23,7 +23,7 @@ from rclpy.executors import SingleThreadedExecutor  # noqa: E402
 from lifecycle_msgs.msg import Transition  # noqa: E402
 from lifecycle_msgs.srv import ChangeState  # noqa: E402
 
-from compliant_damping import config  # noqa: E402
+from compliant_damping.io import config  # noqa: E402
 from compliant_damping.nodes.controller_node import ControllerNode  # noqa: E402
 from compliant_damping.nodes.simulated_joint_node import SimulatedJointNode  # noqa: E402
 from compliant_damping.nodes.startup import params_files, start_line  # noqa: E402

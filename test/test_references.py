@@ -3,7 +3,7 @@ their documented end points."""
 import numpy as np
 import pytest
 
-from compliant_damping.references import Cruise, SmoothStep
+from compliant_damping.control.references import Cruise, SmoothStep
 
 
 @pytest.mark.parametrize("ref", [Cruise(0.0, 0.85, 1.0, 0.1, 0.1), Cruise(0.5, -0.3, 2.0, 0.2),

@@ -15,8 +15,9 @@ import pytest
 from rosbags.rosbag2 import StoragePlugin, Writer
 from rosbags.typesys import Stores, get_typestore
 
-from compliant_damping import cli, recordings
-from compliant_damping.metrics import STEP_FIELDS, JointMetrics, joint_metrics
+from compliant_damping import cli
+from compliant_damping.io import recordings
+from compliant_damping.io.metrics import STEP_FIELDS, JointMetrics, joint_metrics
 
 STORE = get_typestore(Stores.ROS2_KILTED)
 JOINT_STATE = STORE.types["sensor_msgs/msg/JointState"]
@@ -130,7 +131,9 @@ def test_simulated_run_window_and_plot(tmp_path):
     """A simulated run (t_cmd is t) cut to a window and a joint: its metrics are numpy's max/min of the
     same rows, and the torque rate is |diff tau_m| / control_dt (the slew limit of the bundled knee
     bounds it: 10000 N m/s)."""
-    from compliant_damping import config, controller, plots, scenarios, simulate
+    from compliant_damping.io import config, plots
+    from compliant_damping.control import controller
+    from compliant_damping.sim import scenarios, simulate
 
     ctrl, sim = config.load(config.bundled())
     scenario = scenarios.make("end_stop_impact", sim.joints)
@@ -188,7 +191,7 @@ def test_bag_joints_share_their_messages(tmp_path):
 def test_run_and_metrics_types_check_themselves():
     """Run refuses arrays that do not match its joints; JointMetrics.to_dict keeps the declaration order
     (the JSON field order of cdamp simulate)."""
-    from compliant_damping.runs import Run
+    from compliant_damping.io.runs import Run
 
     t, col = np.arange(3) * 0.1, np.zeros((3, 1))
     with pytest.raises(ValueError, match="tau_m"):

@@ -1,11 +1,11 @@
-"""Linearisation of a robot's closed loop (robot_analysis.py) against outside references.
+"""Linearisation of a robot's closed loop (analysis/robot_linear.py) against outside references.
 
 * The two-link arm with gravity under link_damping with exact model knowledge: the poles of the
   linearised running code equal the eigenvalues of the target closed loop of the design notes
   (section 4) linearised by hand at q_d, with M(q_d) and dg/dq(q_d) from Pinocchio:
       M dq'' = -(dg/dq + K) dq + K deta - D_l dq',   B deta'' = K dq - (K + K_eta) deta - D_eta deta'
   (scipy.linalg.eigvals; the coordinates differ by eta = theta - u1/K, a similarity transform).
-* The pendulum URDF: the poles equal the bench joint's analysis (analysis.analyze, itself checked
+* The pendulum URDF: the poles equal the bench joint's analysis (linear.analyze, itself checked
   against hand-derived characteristic polynomials and python-control).
 """
 import dataclasses
@@ -16,12 +16,13 @@ from scipy.linalg import eigvals
 
 pytest.importorskip("pinocchio", reason="URDF chains need Pinocchio (the pin package)")
 
-from compliant_damping import analysis, config  # noqa: E402
-from compliant_damping.controller import stack_gains  # noqa: E402
+from compliant_damping.analysis import linear  # noqa: E402
+from compliant_damping.io import config
+from compliant_damping.control.controller import stack_gains  # noqa: E402
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements  # noqa: E402
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf  # noqa: E402
-from compliant_damping.laws import LAW_NAMES, ChainNominal, Gains, make_law  # noqa: E402
-from compliant_damping.robot_analysis import linearize_robot, rendered_link_stiffness, robot_modes  # noqa: E402
+from compliant_damping.control.laws import LAW_NAMES, ChainNominal, Gains, make_law  # noqa: E402
+from compliant_damping.analysis.robot_linear import linearize_robot, rendered_link_stiffness, robot_modes  # noqa: E402
 
 CTRL, SIM = config.load(config.bundled())
 
@@ -65,7 +66,7 @@ def test_pendulum_urdf_poles_equal_the_bench_analysis(law):
     gains = dataclasses.replace(joint.gains, link_stiffness=40.0)
     chain = ElasticChain(links, ElasticElements.from_joint_params([plant_params]))
     lin = linearize_robot(chain, make_law(law, nominal, stack_gains([gains])), np.array([0.2]))
-    bench = analysis.analyze(plant_params, make_law(law, joint.model, gains), 0.2)
+    bench = linear.analyze(plant_params, make_law(law, joint.model, gains), 0.2)
     np.testing.assert_allclose(_sorted(eigvals(lin.a)), _sorted(bench.poles), rtol=1e-6)
 
 

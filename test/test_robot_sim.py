@@ -3,7 +3,7 @@
 References:
 
 * the bench closed loop (simulate.simulate with controller.JointController on the numba plant,
-  itself checked against analytic results in test_model.py, test_laws.py and test_impact.py):
+  itself checked against analytic results in test_bench_plant.py, test_laws.py and test_impact.py):
   the pendulum URDF with the bench knee's numbers must give the same trajectory and commands,
   safety filter included, for every law, through the end-stop impact;
 * the design notes' safety rule for coupled robots (section 5): a fault on one joint puts the
@@ -19,14 +19,16 @@ import pytest
 
 pytest.importorskip("pinocchio", reason="URDF chains need Pinocchio (the pin package)")
 
-from compliant_damping import config, controller, scenarios, simulate  # noqa: E402
+from compliant_damping.io import config  # noqa: E402
+from compliant_damping.control import controller
+from compliant_damping.sim import scenarios, simulate
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements  # noqa: E402
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf  # noqa: E402
-from compliant_damping.laws import LAW_NAMES, ChainNominal, Gains  # noqa: E402
-from compliant_damping.references import Step  # noqa: E402
-from compliant_damping.robot_sim import simulate_robot  # noqa: E402
-from compliant_damping.safety import FaultCode, Limits  # noqa: E402
-from compliant_damping.sample import JointSample  # noqa: E402
+from compliant_damping.control.laws import LAW_NAMES, ChainNominal, Gains  # noqa: E402
+from compliant_damping.control.references import Step  # noqa: E402
+from compliant_damping.sim.robot_sim import simulate_robot  # noqa: E402
+from compliant_damping.control.safety import FaultCode, Limits  # noqa: E402
+from compliant_damping.control.sample import JointSample  # noqa: E402
 
 CTRL, SIM = config.load(config.bundled())
 DT = 1.0 / CTRL.control_rate

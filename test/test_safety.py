@@ -17,12 +17,12 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from compliant_damping.controller import JointController
-from compliant_damping.joint_state_codec import Rejection, StateDecoder
-from compliant_damping.laws import LAW_NAMES, Gains, NominalModel
-from compliant_damping.safety import MAX_RAMP_DOWN, Fault, FaultCode, Limits, SafetyFilter
-from compliant_damping.sample import JointSample
-from compliant_damping.watchdog import ClockStall, Watchdog
+from compliant_damping.control.controller import JointController
+from compliant_damping.io.joint_state_codec import Rejection, StateDecoder
+from compliant_damping.control.laws import LAW_NAMES, Gains, NominalModel
+from compliant_damping.control.safety import MAX_RAMP_DOWN, Fault, FaultCode, Limits, SafetyFilter
+from compliant_damping.control.sample import JointSample
+from compliant_damping.control.watchdog import ClockStall, Watchdog
 
 PROPERTY = settings(max_examples=2000, deadline=None)
 NAN, INF = math.nan, math.inf
@@ -375,7 +375,7 @@ def test_ramp_to_zero_longer_than_the_maximum_is_refused():
         Limits(torque=40.0, torque_rate=3.0)  # 13.3 s > MAX_RAMP_DOWN
 
 
-# ---- watchdog (watchdog.py): silence on a clock that cannot jump ------------------------------
+# ---- watchdog (control/watchdog.py): silence on a clock that cannot jump ------------------------------
 
 def test_watchdog_arms_on_the_first_joint_state_and_expires_after_the_timeout():
     w = Watchdog(0.05)

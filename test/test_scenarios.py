@@ -12,7 +12,10 @@ k phi + k3 phi^3 included, solved by numpy.roots).
 import numpy as np
 import pytest
 
-from compliant_damping import config, controller, model, scenarios, simulate
+from compliant_damping.io import config
+from compliant_damping.control import controller
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.sim import scenarios, simulate
 
 CTRL, SIM = config.load(config.share_dir() / "config" / "three_joints.yaml")
 
@@ -35,8 +38,8 @@ def test_a_scenario_aimed_at_one_joint_leaves_the_independent_others_alone(name)
 
 def test_the_start_holds_a_progressive_spring_still():
     start = scenarios.make("setpoint_step", SIM.joints, joints=[]).initial
-    params = model.pack([j.plant for j in SIM.joints])
-    link_acceleration = model.derivative(params, start, np.zeros(3), np.zeros((0, 4)), 0.0)[:, 1]
+    params = bench_plant.pack([j.plant for j in SIM.joints])
+    link_acceleration = bench_plant.derivative(params, start, np.zeros(3), np.zeros((0, 4)), 0.0)[:, 1]
     assert SIM.joints[SIM.joint_names.index("ankle")].plant.spring_cubic > 0.0
     assert np.max(np.abs(link_acceleration)) < 1e-9
 

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from scipy.linalg import expm
 
-from compliant_damping.laws import DecoupledDamper, Gains, NominalModel, zoh
+from compliant_damping.control.laws import DecoupledDamper, Gains, NominalModel, zoh
 
 MODEL = NominalModel(link_inertia=0.25, motor_inertia=0.15, spring_stiffness=300.0)
 DAMPERS = {

@@ -2,8 +2,8 @@
 
 ``UrdfChain`` imports Pinocchio only when a chain is built; the rest needs no Pinocchio.
 """
-from .links import ForwardDerivatives, IndependentLinks, LinkDynamics, RobotModelError
-from .urdf_chain import STANDARD_GRAVITY, UrdfChain, bundled_urdf
+from compliant_damping.dynamics.links import (ForwardDerivatives, IndependentLinks, LinkDynamics, RobotModelError)
+from compliant_damping.dynamics.urdf_chain import STANDARD_GRAVITY, UrdfChain, bundled_urdf
 
 __all__ = ["LinkDynamics", "IndependentLinks", "UrdfChain", "ForwardDerivatives", "RobotModelError",
            "bundled_urdf", "STANDARD_GRAVITY"]

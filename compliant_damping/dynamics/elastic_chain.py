@@ -13,7 +13,7 @@ friction terms are diagonal, one elastic element per joint (:class:`ElasticEleme
 are one-sided spring-dampers per joint that only push; a :class:`PlaneContact` is a push-only
 spring-damper between a named frame and a plane, acting on the links through ``J(q)^T n f``.
 
-The state is an (n, 4) array of rows ``[q, q', theta, theta']`` as in model.py. The fixed-step
+The state is an (n, 4) array of rows ``[q, q', theta, theta']`` as in dynamics/bench_plant.py. The fixed-step
 integrator is classical RK4 with the motor torque held over the interval and saturated at the
 driver limit. Everything but the link dynamics and the contacts (springs, friction, end stops,
 the RK4 sums) runs in numba kernels on a packed parameter array when numba is installed (the
@@ -26,7 +26,7 @@ from dataclasses import dataclass, fields
 
 import numpy as np
 
-from ..model import njit  # numba when installed, plain Python otherwise
+from compliant_damping.dynamics.bench_plant import njit  # numba when installed, plain Python otherwise
 
 __all__ = ["ElasticElements", "PlaneContact", "ElasticChain"]
 

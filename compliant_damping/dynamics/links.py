@@ -175,7 +175,7 @@ class IndependentLinks(LinkDynamics):
     """Uncoupled pendulum links: ``M = diag(I)``, ``c = 0``, ``g_i = m g0 l_i sin(q_i + q_off,i)``.
 
     The built-in bench (one or several independent joints, no URDF, no Pinocchio). The same
-    gravity law as the plant of :mod:`compliant_damping.model`, with q = -q_off hanging down.
+    gravity law as the plant of :mod:`compliant_damping.dynamics.bench_plant`, with q = -q_off hanging down.
 
     Parameters
     ----------

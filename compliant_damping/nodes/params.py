@@ -10,7 +10,7 @@ others in the key list, so config refuses them by name with a did-you-mean.
 
 Both nodes build their setups with :func:`setup`, at start-up and for every run-time change. They
 run the built-in joints only for now: a parameter set that names a URDF (the robot section,
-robot_section.py) is refused there, naming its key.
+io/robot_section.py) is refused there, naming its key.
 """
 from __future__ import annotations
 
@@ -20,8 +20,8 @@ from rcl_interfaces.msg import ParameterDescriptor, SetParametersResult
 from rclpy.exceptions import ParameterUninitializedException
 from rclpy.parameter import Parameter
 
-from .. import config, parameter_keys
-from ..robot_section import URDF_KEYS, describes_robot
+from compliant_damping.io import config, parameter_keys
+from compliant_damping.io.robot_section import URDF_KEYS, describes_robot
 
 _SETUPS = {config.CONTROLLER_NODE: config.controller_setup, config.SIM_NODE: config.sim_setup}
 NODE_OPTIONS = {"automatically_declare_parameters_from_overrides": True}  # rclpy.node.Node keywords

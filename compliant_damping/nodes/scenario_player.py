@@ -44,8 +44,9 @@ from lifecycle_msgs.srv import ChangeState
 from rclpy.qos import QoSProfile
 from sensor_msgs.msg import JointState
 
-from .. import config, scenarios
-from .. import joint_state_codec as codec
+from compliant_damping.io import config
+from compliant_damping.sim import scenarios
+from compliant_damping.io import joint_state_codec as codec
 
 
 def _ns(stamp) -> int:

@@ -9,7 +9,7 @@ from rclpy.executors import ExternalShutdownException, SingleThreadedExecutor
 from rclpy.impl.implementation_singleton import rclpy_implementation as _rclpy
 from rclpy.signals import SignalHandlerOptions
 
-from .. import config
+from compliant_damping.io import config
 
 
 def params_files(args) -> list:

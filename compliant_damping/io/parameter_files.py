@@ -1,6 +1,6 @@
 """Parameter files as text: reading (YAML errors at their line and column), the node sections
 (``/**/NODE`` and namespaced ones), layering several files key by key as ROS 2 does, the bundled
-files' folder, and the errors every parameter problem raises. Validation is config.py's.
+files' folder, and the errors every parameter problem raises. Validation is io/config.py's.
 """
 from __future__ import annotations
 
@@ -97,7 +97,7 @@ def layered_parameters(paths, node: str) -> dict:
 
 def share_dir() -> Path:
     """Folder holding config/ and launch/: the source tree, or the install's share/compliant_damping."""
-    here = Path(__file__).resolve().parent.parent
+    here = Path(__file__).resolve().parents[2]  # compliant_damping/io/ -> the source tree
     if (here / "config").is_dir():
         return here
     try:

@@ -13,9 +13,9 @@ from dataclasses import fields
 
 import numpy as np
 
-from .laws import ChainNominal, Gains, LawRunner, NominalModel, check_gains, make_law
-from .safety import Fault, FaultCode, Limits, SafetyFilter, motor_accel_bound
-from .sample import JointSample, Reference
+from compliant_damping.control.laws import ChainNominal, Gains, LawRunner, NominalModel, check_gains, make_law
+from compliant_damping.control.safety import Fault, FaultCode, Limits, SafetyFilter, motor_accel_bound
+from compliant_damping.control.sample import JointSample, Reference
 
 __all__ = ["JointController", "RobotController", "bank", "blend_gains", "chain_nominal", "robot", "stack_gains"]
 

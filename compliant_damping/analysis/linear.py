@@ -3,7 +3,7 @@
 The closed loop is the plant of :mod:`model` driven by a law of :mod:`laws`,
 with state ``[q, q', theta, theta', z...]`` (rad, rad/s; ``z`` the law's own
 states). Nothing is re-derived here: :func:`linearize` differentiates the
-running code (``model.derivative`` with the law's ``output`` and
+running code (``bench_plant.derivative`` with the law's ``output`` and
 ``state_rate``) by central differences, so the poles reported are those of the
 implementation, including any mistake in it.
 
@@ -34,10 +34,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from . import model
-from .laws import Law
-from .model import JointParams
-from .sample import JointSample, Reference
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.control.laws import Law
+from compliant_damping.dynamics.bench_plant import JointParams
+from compliant_damping.control.sample import JointSample, Reference
 
 __all__ = ["AnalysisError", "LinearModel", "Mode", "Analysis", "linearize", "analyze",
            "link_admittance", "modes_of", "central_jacobian"]
@@ -145,7 +145,7 @@ def _rate_function(plant: JointParams, law: Law, q_d: float, coulomb: bool):
     """f(x, tau_ext) -> x' of the closed loop at the constant set point ``q_d``."""
     if not coulomb:
         plant = dataclasses.replace(plant, motor_coulomb=0.0)
-    params = model.pack([plant])
+    params = bench_plant.pack([plant])
     ref = Reference(q_d)
 
     def f(x, tau_ext=0.0):
@@ -153,7 +153,7 @@ def _rate_function(plant: JointParams, law: Law, q_d: float, coulomb: bool):
         z = tuple(float(v) for v in x[4:])
         tau = law.output(s, ref, z)
         ext = np.array([[0.0, -math.inf, math.inf, tau_ext]])
-        plant_rate = model.derivative(params, np.asarray(x[:4], dtype=float).reshape(1, 4),
+        plant_rate = bench_plant.derivative(params, np.asarray(x[:4], dtype=float).reshape(1, 4),
                                       np.array([tau]), ext, 0.0)[0]
         return np.concatenate([plant_rate, np.asarray(law.state_rate(s, ref, z), dtype=float)])
 
@@ -176,7 +176,7 @@ def linearize(plant: JointParams, law: Law, q_d: float = 0.0, *, coulomb: bool =
 
     Parameters
     ----------
-    plant : model.JointParams
+    plant : bench_plant.JointParams
         The simulated joint (its parameters may differ from the law's nominal model).
     law : laws.Law
         The law, built with its nominal model and gains (``laws.make_law``).

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .safety import Fault
+from compliant_damping.control.safety import Fault
 
 __all__ = ["Run", "STATE_SERIES"]
 

@@ -16,7 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .runs import STATE_SERIES, Run
+from compliant_damping.io.runs import STATE_SERIES, Run
 
 __all__ = ["CSV_SERIES", "RecordingError", "read", "read_bag", "read_csv", "read_npz"]
 

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .runs import Run
+from compliant_damping.io.runs import Run
 
 __all__ = ["JointMetrics", "STEP_FIELDS", "SETTLING_BAND", "joint_metrics", "to_dicts"]
 

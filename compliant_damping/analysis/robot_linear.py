@@ -1,15 +1,15 @@
 """Linear analysis of a robot's closed loop on coupled links, around its set-point equilibrium.
 
-The closed loop is dynamics.elastic_chain.ElasticChain driven by a law of laws.py on a
+The closed loop is dynamics.elastic_chain.ElasticChain driven by a law of control/laws.py on a
 laws.ChainNominal, state ``[q, q', theta, theta'] per joint + the law's states`` (rad, rad/s).
-As in analysis.py nothing is re-derived: :func:`linearize_robot` differentiates the running
+As in analysis/linear.py nothing is re-derived: :func:`linearize_robot` differentiates the running
 code (the plant's ``rates`` with the law's ``output`` and ``state_rate``) by central differences
 at the equilibrium it solves for, so the poles are those of the implementation. Coulomb friction
-is switched off for the linearisation (analysis.py explains why); end stops and contacts are
+is switched off for the linearisation (analysis/linear.py explains why); end stops and contacts are
 inactive at an equilibrium between them.
 
 A mode is a real pole or a conjugate pair with natural frequency |p| and damping ratio
--Re(p)/|p| (analysis.py's definitions); its joint shares say how much of its link motion each
+-Re(p)/|p| (analysis/linear.py's definitions); its joint shares say how much of its link motion each
 joint carries.
 """
 from __future__ import annotations
@@ -20,8 +20,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from .analysis import AnalysisError, central_jacobian
-from .sample import JointSample, Reference
+from compliant_damping.analysis.linear import AnalysisError, central_jacobian
+from compliant_damping.control.sample import JointSample, Reference
 
 __all__ = ["RobotLinearModel", "RobotMode", "linearize_robot", "rendered_link_stiffness", "robot_modes"]
 
@@ -121,7 +121,7 @@ def rendered_link_stiffness(lin: RobotLinearModel) -> np.ndarray:
 
     A constant external link torque ``u`` moves the equilibrium by ``dx = -a^-1 b u``; its link
     part is ``dq = -C a^-1 b u`` (C picks q), so the stiffness is ``K_r = -(C a^-1 b)^-1``: the
-    matrix analogue of analysis.py's static link stiffness ``1 / G(0)``. Raises AnalysisError when
+    matrix analogue of analysis/linear.py's static link stiffness ``1 / G(0)``. Raises AnalysisError when
     ``a`` is singular (a link that drifts has no static stiffness).
     """
     n = lin.joints

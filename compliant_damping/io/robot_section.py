@@ -20,8 +20,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
-from .dynamics.links import IndependentLinks, RobotModelError
-from .parameter_files import ConfigError, share_dir
+from compliant_damping.dynamics.links import IndependentLinks, RobotModelError
+from compliant_damping.io.parameter_files import ConfigError, share_dir
 
 __all__ = ["URDF_KEYS", "RobotSource", "robot_source", "describes_robot", "resolve_package_uri", "build_links"]
 
@@ -116,7 +116,7 @@ def build_links(source: RobotSource | None, joint_names, link_params=()):
     """
     if source is None:
         return IndependentLinks.from_params(joint_names, link_params)
-    from .dynamics.urdf_chain import UrdfChain
+    from compliant_damping.dynamics.urdf_chain import UrdfChain
     try:
         return UrdfChain(source.xml, joint_names, source=source.origin)
     except RobotModelError as err:

@@ -38,7 +38,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from . import config
+from compliant_damping.io import config
 
 
 @dataclass(frozen=True)

@@ -1,4 +1,4 @@
-"""The plant alone (model.py) against analytic results and scipy's reference integrators.
+"""The plant alone (bench_plant.py) against analytic results and scipy's reference integrators.
 
 Every joint here is invented for the test. The plant step is the default 10 kHz
 (1 kHz control tick, 10 RK4 substeps) unless a test says otherwise.
@@ -9,17 +9,17 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from compliant_damping import model
-from compliant_damping.model import JointParams
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.dynamics.bench_plant import JointParams
 
 H = 1e-4          # s, default plant step (control_dt 1 ms / 10 substeps)
 SAMPLE = 1e-3     # s, recording period of the helper below
 DECOUPLED = 1e-9  # N m/rad, a spring so soft that link and motor move independently
 
 
-def run(joint, x0, tau=0.0, duration=1.0, ext=model.NO_EXTERNAL):
-    """(t, states, applied torque) from model.advance, recorded every SAMPLE s; states are (samples, 4)."""
-    params = model.pack([joint])
+def run(joint, x0, tau=0.0, duration=1.0, ext=bench_plant.NO_EXTERNAL):
+    """(t, states, applied torque) from bench_plant.advance, recorded every SAMPLE s; states are (samples, 4)."""
+    params = bench_plant.pack([joint])
     x = np.array([x0], dtype=float)
     torque = np.array([tau], dtype=float)
     n, per = round(duration / SAMPLE), round(SAMPLE / H)
@@ -27,7 +27,7 @@ def run(joint, x0, tau=0.0, duration=1.0, ext=model.NO_EXTERNAL):
     out[0] = x[0]
     applied = None
     for i in range(n):
-        applied = model.advance(x, params, torque, ext, i * SAMPLE, H, per)[0]
+        applied = bench_plant.advance(x, params, torque, ext, i * SAMPLE, H, per)[0]
         out[i + 1] = x[0]
     return np.arange(n + 1) * SAMPLE, out, applied
 
@@ -80,12 +80,12 @@ def test_energy_conserved_without_losses():
     """
     joint = JointParams(link_inertia=0.35, motor_inertia=0.12, spring_stiffness=180.0, spring_cubic=4.0e4,
                         gravity_torque=3.0, gravity_offset=0.3)
-    params = model.pack([joint])
+    params = bench_plant.pack([joint])
     x = np.array([[0.2, 1.5, 0.27, -0.8]])
-    e0 = model.energy(params, x)[0]
+    e0 = bench_plant.energy(params, x)[0]
     for i in range(10_000):  # 10 s in 1 ms ticks of 10 substeps
-        model.advance(x, params, np.zeros(1), model.NO_EXTERNAL, i * SAMPLE, H, 10)
-    drift = abs(model.energy(params, x)[0] / e0 - 1.0)
+        bench_plant.advance(x, params, np.zeros(1), bench_plant.NO_EXTERNAL, i * SAMPLE, H, 10)
+    drift = abs(bench_plant.energy(params, x)[0] / e0 - 1.0)
     print(f"energy: E0 {e0:.6f} J, relative drift over 10 s {drift:.2e}")
     assert e0 > 1.0  # the state really carries energy in every term
     assert drift < 1e-6
@@ -95,15 +95,15 @@ def test_smooth_motion_matches_solve_ivp():
     """Gravity, viscous losses, held motor torque: RK4 at 10 kHz agrees with scipy's DOP853.
 
     Reference: scipy.integrate.solve_ivp (DOP853, rtol 1e-10, atol 1e-12) on
-    model.derivative, i.e. an independent adaptive integrator on the same equations.
+    bench_plant.derivative, i.e. an independent adaptive integrator on the same equations.
     """
     joint = JointParams(link_inertia=0.3, motor_inertia=0.08, spring_stiffness=260.0, spring_cubic=800.0,
                         spring_damping=0.03, link_viscous=0.05, motor_viscous=0.1,
                         gravity_torque=2.5, gravity_offset=-0.2)
     x0, tau = [0.1, 0.0, 0.15, 0.0], 1.2
     t, x, _ = run(joint, x0, tau=tau, duration=5.0)
-    params, torque = model.pack([joint]), np.array([tau])
-    ref = solve_ivp(lambda tt, y: model.derivative(params, y.reshape(1, 4), torque, model.NO_EXTERNAL, tt).ravel(),
+    params, torque = bench_plant.pack([joint]), np.array([tau])
+    ref = solve_ivp(lambda tt, y: bench_plant.derivative(params, y.reshape(1, 4), torque, bench_plant.NO_EXTERNAL, tt).ravel(),
                     (0.0, 5.0), x0, method="DOP853", rtol=1e-10, atol=1e-12, t_eval=t)
     assert ref.success
     err = np.max(np.abs(x[:, 0] - ref.y[0]))
@@ -117,7 +117,7 @@ def _contact_restitution(m, k, d, v, clipped):
 
     Penetration p, p'' = -F/m with F = k p + d p'. ``clipped``: the wall only pushes, so the
     mass leaves when F reaches zero (F would turn into a pull); otherwise when p returns to zero.
-    Written here from the contact law of the design notes, independently of model.py.
+    Written here from the contact law of the design notes, independently of bench_plant.py.
     """
     def rhs(_, y):
         return [y[1], -(k * y[0] + d * y[1]) / m]

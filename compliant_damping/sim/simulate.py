@@ -1,4 +1,4 @@
-"""Fixed-step closed-loop simulation: plant (model.py) + controller (law + safety) + sensors.
+"""Fixed-step closed-loop simulation: plant (bench_plant.py) + controller (law + safety) + sensors.
 
 The controller ticks every ``control_dt`` seconds on the sensor reading; its
 torque is held over the tick while the plant takes ``substeps`` RK4 steps.
@@ -9,9 +9,9 @@ import time
 
 import numpy as np
 
-from . import model
-from .runs import Run
-from .sensors import SensorChannel
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.io.runs import Run
+from compliant_damping.sim.sensors import SensorChannel
 
 __all__ = ["simulate"]
 
@@ -24,7 +24,7 @@ def simulate(sim_joints, controllers, scenario, duration=None, control_dt=1e-3, 
     controller.JointController per joint; progress: optional callable(ticks done).
     """
     duration = scenario.duration if duration is None else duration
-    params = model.pack([j.plant for j in sim_joints])
+    params = bench_plant.pack([j.plant for j in sim_joints])
     rng = np.random.default_rng(seed)
     sensors = [SensorChannel(j.sensor, control_dt, rng) for j in sim_joints]
     x = scenario.initial.astype(float).copy()
@@ -35,7 +35,7 @@ def simulate(sim_joints, controllers, scenario, duration=None, control_dt=1e-3, 
     # The tick loop works on plain Python floats, with per-joint rows and bound methods looked up once.
     joints = list(zip(params.tolist(), [s.read for s in sensors], [c.step for c in controllers],
                       [r.sample for r in scenario.references]))
-    spring_torque, advance, external = model.spring_torque, model.advance, scenario.external
+    spring_torque, advance, external = bench_plant.spring_torque, bench_plant.advance, scenario.external
     start = time.perf_counter()
     for i in range(n_ticks):
         t = i * control_dt

@@ -14,7 +14,7 @@ sim time in lock step, and asks it on a timer whether the silence has lasted too
 """
 from __future__ import annotations
 
-from .safety import Fault, FaultCode
+from compliant_damping.control.safety import Fault, FaultCode
 
 __all__ = ["Watchdog", "ClockStall", "stall_timeout"]
 

@@ -1,6 +1,6 @@
 """Parameter validation: one ROS 2 parameter YAML for the controller node, the simulated
-joint node and the command-line tool (reading, sections and layering: parameter_files.py, whose
-names this module passes on; the keys of each node, their types and defaults: parameter_keys.py).
+joint node and the command-line tool (reading, sections and layering: io/parameter_files.py, whose
+names this module passes on; the keys of each node, their types and defaults: io/parameter_keys.py).
 
 Layout (node names are the sections; keys are ROS parameter names, dotted when nested)::
 
@@ -31,23 +31,24 @@ Rules beyond one key (each refuses the setup):
   promises to be there within 10 s.
 
 :func:`controller_check` and :func:`sim_check` gather every problem instead of stopping at the
-first (``cdamp check-config``, with the limit consistency rules of config_check.py).
+first (``cdamp check-config``, with the limit consistency rules of io/config_check.py).
 """
 from __future__ import annotations
 
 import math
 from dataclasses import MISSING, dataclass, field
 
-from .dynamics.elastic_chain import PlaneContact
-from .laws import Gains, NominalDrive, NominalModel, check_gains
-from .model import DriveParams, JointParams
-from .parameter_files import (ConfigError, YamlSyntaxError, bundled, flatten, layered_parameters,
-                              node_parameters, read, share_dir)
-from .parameter_keys import (CONTROLLER_JOINT_SETTINGS, CONTROLLER_NODE, CONTROLLER_SETTINGS, SIM_JOINT_SETTINGS,
-                             SIM_NODE, SIM_SETTINGS, Setting, dataclass_keys, unknown_key_errors)
-from .robot_section import URDF_KEYS, build_links, describes_robot, robot_source
-from .safety import Limits
-from .sensors import SensorParams
+from compliant_damping.dynamics.elastic_chain import PlaneContact
+from compliant_damping.control.laws import Gains, NominalDrive, NominalModel, check_gains
+from compliant_damping.dynamics.bench_plant import DriveParams, JointParams
+from compliant_damping.io.parameter_files import (ConfigError, YamlSyntaxError, bundled, flatten, layered_parameters,
+                                                  node_parameters, read, share_dir)
+from compliant_damping.io.parameter_keys import (CONTROLLER_JOINT_SETTINGS, CONTROLLER_NODE, CONTROLLER_SETTINGS,
+                                                 SIM_JOINT_SETTINGS, SIM_NODE, SIM_SETTINGS, Setting, dataclass_keys,
+                                                 unknown_key_errors)
+from compliant_damping.io.robot_section import URDF_KEYS, build_links, describes_robot, robot_source
+from compliant_damping.control.safety import Limits
+from compliant_damping.sim.sensors import SensorParams
 
 __all__ = ["CONTROLLER_NODE", "SIM_NODE", "PACED_EFFORT", "ConfigError", "YamlSyntaxError", "Problems", "Checked",
            "build", "ControllerJoint", "ControllerSetup", "controller_check", "controller_setup", "SimJoint",

@@ -27,8 +27,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .dynamics.links import IndependentLinks
-from .references import Constant, Cruise, Step
+from compliant_damping.dynamics.links import IndependentLinks
+from compliant_damping.control.references import Constant, Cruise, Step
 
 __all__ = ["SCENARIOS", "Scenario", "make"]
 
@@ -48,7 +48,7 @@ class Scenario:
     initial : ndarray, shape (n, 4)
         ``[q, q', theta, theta']`` per joint (rad, rad/s).
     references : tuple
-        One reference object per joint (see references.py).
+        One reference object per joint (see control/references.py).
     external : ndarray, shape (m, 4)
         Scripted link torques, rows ``[joint, t_on, t_off, torque]`` applied on [t_on, t_off) (N m).
     step : tuple or None

@@ -8,7 +8,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from .sample import Reference
+from compliant_damping.control.sample import Reference
 
 
 @dataclass(frozen=True)

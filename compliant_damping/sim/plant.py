@@ -1,8 +1,8 @@
 """Simulated joints stepped one state period at a time (the simulated joint node's core, no ROS).
 
-Same pieces as the offline simulator: ``model.advance`` (RK4, ``substeps`` per period,
+Same pieces as the offline simulator: ``bench_plant.advance`` (RK4, ``substeps`` per period,
 torque held over the period) and one ``sensors.SensorChannel`` per joint read once per
-period. External torques are rows ``[joint, t_on, t_off, torque]`` of ``model.advance``.
+period. External torques are rows ``[joint, t_on, t_off, torque]`` of ``bench_plant.advance``.
 """
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ import math
 
 import numpy as np
 
-from . import model
-from .sensors import SensorChannel
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.sim.sensors import SensorChannel
 
 
 class Plant:
@@ -21,12 +21,12 @@ class Plant:
         self.period = 1.0 / setup.state_rate
         self.substeps = setup.substeps
         self.ticks = 0
-        self.params = model.pack([j.plant for j in setup.joints])
+        self.params = bench_plant.pack([j.plant for j in setup.joints])
         q0 = [j.initial_position for j in setup.joints]
-        self.x = np.array([[q, 0.0, model.equilibrium_motor_position(p, q), 0.0]
+        self.x = np.array([[q, 0.0, bench_plant.equilibrium_motor_position(p, q), 0.0]
                            for p, q in zip(self.params, q0)], dtype=float).reshape(-1, 4)
         self.applied = np.zeros(len(q0))  # torque held over the last period (N m)
-        self.external = model.NO_EXTERNAL.copy()
+        self.external = bench_plant.NO_EXTERNAL.copy()
         rng = np.random.default_rng(setup.seed)
         self._sensors = [SensorChannel(j.sensor, self.period, rng) for j in setup.joints]
         self.readings = self._read()
@@ -38,13 +38,13 @@ class Plant:
     def _read(self):
         out = []
         for p, s, (q, dq, th, dth) in zip(self.params, self._sensors, self.x):
-            out.append(s.read(q, dq, th, dth, model.spring_torque(p, q, dq, th, dth)))
+            out.append(s.read(q, dq, th, dth, bench_plant.spring_torque(p, q, dq, th, dth)))
         return out
 
     def advance(self, torques) -> None:
         """Hold ``torques`` (N m per joint) over one period, then take this period's readings."""
         tau = np.asarray(torques, dtype=float)
-        self.applied = model.advance(self.x, self.params, tau, self.external, self.t,
+        self.applied = bench_plant.advance(self.x, self.params, tau, self.external, self.t,
                                      self.period / self.substeps, self.substeps)
         self.ticks += 1
         self.external = self.external[self.external[:, 2] > self.t]
@@ -63,4 +63,4 @@ class Plant:
 
     def set_joints(self, joints) -> None:
         """New plant parameters (config.SimJoint per joint, same joints) from the next period."""
-        self.params = model.pack([j.plant for j in joints])
+        self.params = bench_plant.pack([j.plant for j in joints])

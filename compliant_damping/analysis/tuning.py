@@ -5,7 +5,7 @@ impact barely moves the motor torque; a stiff one approaches ``link_damping``
 and damps free motion better. :func:`sweep_decoupling_stiffness` measures both
 sides for a range of ``k_v``: the impact (simulated end_stop_impact, through the
 joint's controller with its safety filter) and the least-damped closed-loop
-mode (:func:`analysis.analyze`). :func:`recommend` picks the softest ``k_v``
+mode (:func:`linear.analyze`). :func:`recommend` picks the softest ``k_v``
 that keeps that mode's damping ratio above a threshold and stays inside the
 joint's torque and slew limits.
 """
@@ -16,10 +16,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import analysis, scenarios, simulate
-from .controller import JointController
-from .laws import make_law
-from .metrics import joint_metrics
+from compliant_damping.analysis import linear
+from compliant_damping.sim import scenarios, simulate
+from compliant_damping.control.controller import JointController
+from compliant_damping.control.laws import make_law
+from compliant_damping.io.metrics import joint_metrics
 
 __all__ = ["KvPoint", "sweep_decoupling_stiffness", "recommend", "log_grid"]
 
@@ -43,7 +44,7 @@ class KvPoint:
     mode_frequency_hz : float
         Natural frequency of that mode (Hz).
     link_share : float
-        Share of the link position in that mode's shape (0..1, see analysis.Mode).
+        Share of the link position in that mode's shape (0..1, see linear.Mode).
     within_limits : bool
         True when neither the torque nor the slew limit was reached during the impact.
     """
@@ -86,7 +87,7 @@ def sweep_decoupling_stiffness(ctrl_joint, sim_joint, stiffnesses, *, control_dt
         ctrl = JointController(LAW, ctrl_joint.model, gains, lim, period=control_dt)
         run = simulate.simulate([sim_joint], [ctrl], scenario, control_dt=control_dt, substeps=substeps)
         m = joint_metrics(run, scenario)[sim_joint.name]
-        res = analysis.analyze(sim_joint.plant, make_law(LAW, ctrl_joint.model, gains), sim_joint.initial_position)
+        res = linear.analyze(sim_joint.plant, make_law(LAW, ctrl_joint.model, gains), sim_joint.initial_position)
         mode = res.least_damped
         # reaching a limit within 0.1 % counts as hitting it (the filter clips exactly at it)
         inside = m.peak_abs_torque < 0.999 * lim.torque and m.peak_torque_rate < 0.999 * lim.torque_rate

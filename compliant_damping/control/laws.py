@@ -43,9 +43,9 @@ from typing import NamedTuple
 
 import numpy as np
 
-from .dynamics.links import LinkMotion
-from .fields import param
-from .sample import JointSample
+from compliant_damping.dynamics.links import LinkMotion
+from compliant_damping.fields import param
+from compliant_damping.control.sample import JointSample
 
 LAW_NAMES = ("zero", "motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
 

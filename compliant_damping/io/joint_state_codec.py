@@ -13,7 +13,7 @@ import enum
 import math
 from dataclasses import dataclass
 
-from .sample import JointSample, Reference
+from compliant_damping.control.sample import JointSample, Reference
 
 __all__ = ["Rejection", "StateDecoder", "encode_states", "pick_values", "ReferenceSchedule", "Stamp",
            "StampOrder", "TickClock"]

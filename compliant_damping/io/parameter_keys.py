@@ -1,11 +1,11 @@
 """The parameter keys of both nodes: every key's ROS type, default and description, and the
-refusal of a key neither node knows (with the closest known key). Validation is config.py's;
+refusal of a key neither node knows (with the closest known key). Validation is io/config.py's;
 the ROS parameter declarations (nodes/params.py) and ``cdamp keys`` list :func:`parameter_specs`.
 
 Keys are ROS parameter names, dotted when nested. The top-level settings of a node are
 :class:`Setting` rows; each joint has its own settings (``<joint>.<key>``) and the fields of
 its parameter dataclasses (``<joint>.<prefix><field>``, prefix per group). With a URDF (the
-robot section, robot_section.py) the per-joint groups are the drive's only: the URDF gives the
+robot section, io/robot_section.py) the per-joint groups are the drive's only: the URDF gives the
 links.
 """
 from __future__ import annotations
@@ -13,11 +13,11 @@ from __future__ import annotations
 import difflib
 from dataclasses import MISSING, dataclass, fields
 
-from .laws import LAW_NAMES, Gains, NominalDrive, NominalModel
-from .model import LINK_KEYS, DriveParams, JointParams
-from .parameter_files import ConfigError
-from .safety import SAFE_MODES, Limits
-from .sensors import SensorParams
+from compliant_damping.control.laws import LAW_NAMES, Gains, NominalDrive, NominalModel
+from compliant_damping.dynamics.bench_plant import LINK_KEYS, DriveParams, JointParams
+from compliant_damping.io.parameter_files import ConfigError
+from compliant_damping.control.safety import SAFE_MODES, Limits
+from compliant_damping.sim.sensors import SensorParams
 
 __all__ = ["CONTROLLER_NODE", "SIM_NODE", "Setting", "CONTROLLER_SETTINGS", "CONTROLLER_JOINT_SETTINGS",
            "CONTROLLER_JOINT_GROUPS", "CONTROLLER_URDF_JOINT_GROUPS", "SIM_SETTINGS", "SIM_JOINT_SETTINGS",

@@ -22,7 +22,7 @@ from dataclasses import astuple, dataclass, fields
 
 import numpy as np
 
-from .fields import param
+from compliant_damping.fields import param
 
 try:  # numba is optional: the same function runs as plain Python without it.
     from numba import njit
