@@ -7,6 +7,8 @@ from __future__ import annotations
 
 from dataclasses import MISSING, field
 
+__all__ = ["CHECKS", "param"]
+
 CHECKS = ("positive", "nonnegative", "finite", "not_nan", "limit")
 
 

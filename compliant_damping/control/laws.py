@@ -47,6 +47,10 @@ from compliant_damping.dynamics.links import LinkMotion
 from compliant_damping.fields import param
 from compliant_damping.control.sample import JointSample
 
+__all__ = ["LAW_NAMES", "RegulationTarget", "regulation_target", "NominalDrive", "NominalModel", "ChainNominal",
+           "Gains", "Law", "MotorPD", "LinkDamping", "DecoupledDamper", "DecoupledImpedance", "check_gains",
+           "make_law", "zoh", "LawRunner"]
+
 LAW_NAMES = ("zero", "motor_pd", "link_damping", "decoupled_damper", "decoupled_impedance")
 
 

@@ -10,6 +10,8 @@ from dataclasses import dataclass
 
 from compliant_damping.control.sample import Reference
 
+__all__ = ["Constant", "Step", "Ramp", "SmoothStep", "Cruise", "Sinusoid"]
+
 
 @dataclass(frozen=True)
 class Constant:

@@ -4,6 +4,8 @@ from __future__ import annotations
 import math
 from typing import NamedTuple
 
+__all__ = ["JointSample", "Reference"]
+
 
 class JointSample(NamedTuple):
     """Measured state of one series-elastic joint, link-side units.

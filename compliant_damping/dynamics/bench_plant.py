@@ -24,6 +24,9 @@ import numpy as np
 
 from compliant_damping.fields import param
 
+__all__ = ["DriveParams", "JointParams", "LINK_KEYS", "N_PARAMS", "pack", "gravity", "spring_torque", "advance",
+           "derivative", "energy", "equilibrium_motor_position", "NO_EXTERNAL"]
+
 try:  # numba is optional: the same function runs as plain Python without it.
     from numba import njit
 except ImportError:  # pragma: no cover - exercised only where numba is absent

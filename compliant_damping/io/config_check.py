@@ -40,6 +40,8 @@ from dataclasses import dataclass
 
 from compliant_damping.io import config
 
+__all__ = ["Problem", "deflection_reach", "stop_penetration", "check_files"]
+
 
 @dataclass(frozen=True)
 class Problem:

@@ -13,6 +13,8 @@ import numpy as np
 from compliant_damping.dynamics import bench_plant
 from compliant_damping.sim.sensors import SensorChannel
 
+__all__ = ["Plant"]
+
 
 class Plant:
     """State of all joints of a ``config.SimSetup``; time ``t = ticks * period`` (s)."""

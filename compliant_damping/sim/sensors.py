@@ -10,6 +10,8 @@ import numpy as np
 from compliant_damping.fields import param
 from compliant_damping.control.sample import JointSample
 
+__all__ = ["SensorParams", "SensorChannel"]
+
 
 @dataclass(frozen=True)
 class SensorParams:
