@@ -51,7 +51,8 @@ def _link_damping_target_error(control_dt):
     d_l, kk, dd = GAINS.link_damping, GAINS.motor_stiffness, GAINS.motor_damping
     q_d = 0.1
     eta_d = q_d + g(q_d) / k
-    q0, th0 = 0.0, bench_plant.equilibrium_motor_position(bench_plant.pack([IDEAL])[0], 0.0) + 0.02
+    q0 = 0.0
+    th0 = q0 + bench_plant.gravity(bench_plant.pack([IDEAL])[0], q0) / IDEAL.spring_stiffness + 0.02  # at rest, + 0.02
     scenario = Scenario("deflected", 0.5, np.array([[q0, 0.0, th0, 0.0]]), (Constant(q_d),), np.zeros((0, 4)))
     run, ctrl = _run(IDEAL, EXACT, "link_damping", GAINS, scenario, control_dt=control_dt,
                      substeps=max(1, round(1e-4 / control_dt)))

@@ -47,3 +47,10 @@ def test_the_start_holds_a_progressive_spring_still():
 def test_unknown_joint_names_are_refused():
     with pytest.raises(ValueError, match="joints: elbow not among"):
         scenarios.make("setpoint_step", SIM.joints, joints=["elbow"])
+
+
+def test_the_simulated_joint_node_starts_where_the_offline_scenarios_start():
+    """The node's plant stepper and the offline scenarios share the rest state (same code path,
+    so a ROS run can reproduce an offline one), progressive spring included."""
+    from compliant_damping.sim.plant import Plant
+    assert np.array_equal(Plant(SIM).x, scenarios.make("setpoint_step", SIM.joints).initial)

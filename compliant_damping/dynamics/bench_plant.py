@@ -25,7 +25,7 @@ import numpy as np
 from compliant_damping.fields import param
 
 __all__ = ["DriveParams", "JointParams", "LINK_KEYS", "N_PARAMS", "pack", "gravity", "spring_torque", "advance",
-           "derivative", "energy", "equilibrium_motor_position", "NO_EXTERNAL"]
+           "derivative", "energy", "NO_EXTERNAL"]
 
 try:  # numba is optional: the same function runs as plain Python without it.
     from numba import njit
@@ -183,11 +183,6 @@ def energy(params, x):
                   + 0.25 * p[K3] * phi**4 + p[MGL] * (1.0 - math.cos(q + p[QOFF]))
                   + 0.5 * p[KSTOP] * pen**2)
     return out
-
-
-def equilibrium_motor_position(p, q):
-    """Motor position (rad) that holds the link still at ``q`` against gravity (linear spring)."""
-    return q + gravity(p, q) / p[K]
 
 
 NO_EXTERNAL = np.zeros((0, 4))

@@ -11,6 +11,7 @@ import math
 import numpy as np
 
 from compliant_damping.dynamics import bench_plant
+from compliant_damping.sim.scenarios import rest_state
 from compliant_damping.sim.sensors import SensorChannel
 
 __all__ = ["Plant"]
@@ -24,10 +25,8 @@ class Plant:
         self.substeps = setup.substeps
         self.ticks = 0
         self.params = bench_plant.pack([j.plant for j in setup.joints])
-        q0 = [j.initial_position for j in setup.joints]
-        self.x = np.array([[q, 0.0, bench_plant.equilibrium_motor_position(p, q), 0.0]
-                           for p, q in zip(self.params, q0)], dtype=float).reshape(-1, 4)
-        self.applied = np.zeros(len(q0))  # torque held over the last period (N m)
+        self.x = rest_state(setup.joints)  # as the offline scenarios start
+        self.applied = np.zeros(len(setup.joints))  # torque held over the last period (N m)
         self.external = bench_plant.NO_EXTERNAL.copy()
         rng = np.random.default_rng(setup.seed)
         self._sensors = [SensorChannel(j.sensor, self.period, rng) for j in setup.joints]
@@ -47,7 +46,7 @@ class Plant:
         """Hold ``torques`` (N m per joint) over one period, then take this period's readings."""
         tau = np.asarray(torques, dtype=float)
         self.applied = bench_plant.advance(self.x, self.params, tau, self.external, self.t,
-                                     self.period / self.substeps, self.substeps)
+                                           self.period / self.substeps, self.substeps)
         self.ticks += 1
         self.external = self.external[self.external[:, 2] > self.t]
         self.readings = self._read()

@@ -30,7 +30,7 @@ import numpy as np
 from compliant_damping.dynamics.links import IndependentLinks
 from compliant_damping.control.references import Constant, Cruise, Step
 
-__all__ = ["SCENARIOS", "Scenario", "make"]
+__all__ = ["SCENARIOS", "Scenario", "make", "rest_state"]
 
 SCENARIOS = ("free_oscillation", "setpoint_step", "end_stop_impact", "external_impulse", "foot_landing")
 LANDING_START = 0.05  # s: the floor starts to rise
@@ -78,6 +78,18 @@ def _spring_deflection(plant, torque: float) -> float:
     return float(roots[np.argmin(np.abs(roots.imag))].real)
 
 
+def rest_state(sim_joints, links=None) -> np.ndarray:
+    """(n, 4) state at rest at the joints' initial positions, each spring carrying its link's
+    gravity torque (rad, rad/s); ``links`` default to the joints' own pendulums."""
+    q0 = np.array([j.initial_position for j in sim_joints], dtype=float)
+    if links is None:
+        links = IndependentLinks.from_params([j.name for j in sim_joints], [j.plant for j in sim_joints])
+    state = np.zeros((len(q0), 4))
+    state[:, 0] = q0
+    state[:, 2] = q0 + [_spring_deflection(j.plant, float(g)) for j, g in zip(sim_joints, links.gravity(q0))]
+    return state
+
+
 def make(name: str, sim_joints, *, joints=None, links=None, floor=None, step: float = 0.05, deflection: float = 0.02,
          impulse: float = 0.5, impulse_width: float = 0.005, overshoot: float = 0.05,
          impact_speed: float = 1.0, landing_speed: float = 0.35, gap: float = 0.02,
@@ -118,13 +130,10 @@ def make(name: str, sim_joints, *, joints=None, links=None, floor=None, step: fl
     acting = tuple(i for i, name in enumerate(names) if joints is None or name in joints)
     act = np.zeros(n, dtype=bool)
     act[list(acting)] = True
-    q0 = np.array([j.initial_position for j in sim_joints])
     if links is None:
-        links = IndependentLinks.from_params([j.name for j in sim_joints], [j.plant for j in sim_joints])
-    holding = links.gravity(q0)
-    initial = np.zeros((n, 4))
-    initial[:, 0] = q0
-    initial[:, 2] = q0 + [_spring_deflection(j.plant, float(g)) for j, g in zip(sim_joints, holding)]
+        links = IndependentLinks.from_params(names, [j.plant for j in sim_joints])
+    initial = rest_state(sim_joints, links)
+    q0 = initial[:, 0].copy()
     external = np.zeros((0, 4))
     hold = tuple(Constant(float(q)) for q in q0)
     contacts = () if floor is None else (floor,)
