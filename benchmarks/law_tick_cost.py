@@ -17,9 +17,9 @@ import time
 
 import numpy as np
 
-from compliant_damping.io import config
 from compliant_damping.control.laws import LawRunner, make_law
 from compliant_damping.control.sample import JointSample
+from compliant_damping.io import config
 
 TICKS, ROUNDS = 20000, 5
 

@@ -15,7 +15,7 @@ import time
 
 import numpy as np
 
-from compliant_damping.dynamics import bundled_urdf, IndependentLinks, UrdfChain
+from compliant_damping.dynamics import IndependentLinks, UrdfChain, bundled_urdf
 
 CALLS, ROUNDS = 4000, 7
 AXES = ("0 1 0", "1 0 0", "0 0 1")

@@ -51,11 +51,11 @@ from rclpy.node import Node
 from rclpy.qos import QoSProfile, qos_profile_sensor_data
 from sensor_msgs.msg import JointState
 
-from compliant_damping.io import config
 from compliant_damping import demo
+from compliant_damping.control.sample import JointSample
+from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
 from compliant_damping.nodes import scenario_player, spin
-from compliant_damping.control.sample import JointSample
 
 LAW = "decoupled_damper"
 WATCHDOG_TIMEOUT = 10.0  # s, instead of the file's 0.05

@@ -32,12 +32,12 @@ import time
 from pathlib import Path
 
 import numpy as np
+from tick_worker import BENCH, KNEE, LEG_LOOP, TICKS, chain7, hold, leg, leg_plant, robot
 
 from compliant_damping.control.controller import stack_gains
 from compliant_damping.control.laws import ChainNominal, LawRunner, make_law
-from compliant_damping.sim.robot_sim import simulate_robot
 from compliant_damping.control.sample import JointSample
-from tick_worker import BENCH, KNEE, LEG_LOOP, TICKS, chain7, hold, leg, leg_plant, robot
+from compliant_damping.sim.robot_sim import simulate_robot
 
 ROUNDS = 9
 START = "13ec718"  # the commit this speed work began from (controller and leg loop before / now)

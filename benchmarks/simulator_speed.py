@@ -28,9 +28,9 @@ import time
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from compliant_damping.io import config
 from compliant_damping.control import controller
 from compliant_damping.dynamics import bench_plant
+from compliant_damping.io import config
 from compliant_damping.sim import scenarios, simulate
 
 DURATION = 10.0  # s simulated per timed run

@@ -27,8 +27,8 @@ from lifecycle_msgs.msg import Transition
 from rclpy.qos import QoSProfile
 from sensor_msgs.msg import JointState
 
-from compliant_damping.io import config
 from compliant_damping import demo
+from compliant_damping.io import config
 from compliant_damping.nodes import scenario_player as player
 
 PARAMS = config.bundled().parent / "three_joints.yaml"

@@ -33,12 +33,11 @@ import time
 from pathlib import Path
 
 import numpy as np
+from link_dynamics_cost import seven_joint_urdf
 
 import compliant_damping
 from compliant_damping.dynamics import UrdfChain, bundled_urdf
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements
-from link_dynamics_cost import seven_joint_urdf
-
 
 LAYERED = (Path(compliant_damping.__file__).parent / "control").is_dir()  # this tree has the layer packages
 

@@ -13,12 +13,12 @@ from dataclasses import MISSING
 import numpy as np
 
 from compliant_damping.analysis import linear, robot_linear, tuning
-from compliant_damping.io import config, config_check, parameter_keys
 from compliant_damping.control import controller
-from compliant_damping.sim import robot_sim, scenarios, simulate
 from compliant_damping.control.laws import LAW_NAMES, make_law
+from compliant_damping.io import config, config_check, parameter_keys
 from compliant_damping.io.metrics import joint_metrics, to_dicts
 from compliant_damping.io.robot_section import describes_robot
+from compliant_damping.sim import robot_sim, scenarios, simulate
 
 
 def _load(args):

@@ -23,11 +23,11 @@ from pathlib import Path
 import numpy as np
 import yaml
 
-from compliant_damping.io import config, plots, recordings
 from compliant_damping.control import controller
-from compliant_damping.sim import scenarios, simulate
+from compliant_damping.io import config, plots, recordings
 from compliant_damping.io.metrics import joint_metrics, to_dicts
 from compliant_damping.io.runs import Run
+from compliant_damping.sim import scenarios, simulate
 
 DEMO_LAWS = ("motor_pd", "link_damping", "decoupled_damper")
 SCENARIO = "end_stop_impact"

@@ -34,10 +34,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from compliant_damping.dynamics import bench_plant
 from compliant_damping.control.laws import Law
-from compliant_damping.dynamics.bench_plant import JointParams
 from compliant_damping.control.sample import JointSample, Reference
+from compliant_damping.dynamics import bench_plant
+from compliant_damping.dynamics.bench_plant import JointParams
 
 __all__ = ["AnalysisError", "LinearModel", "Mode", "Analysis", "linearize", "analyze",
            "link_admittance", "modes_of", "central_jacobian"]
@@ -154,7 +154,7 @@ def _rate_function(plant: JointParams, law: Law, q_d: float, coulomb: bool):
         tau = law.output(s, ref, z)
         ext = np.array([[0.0, -math.inf, math.inf, tau_ext]])
         plant_rate = bench_plant.derivative(params, np.asarray(x[:4], dtype=float).reshape(1, 4),
-                                      np.array([tau]), ext, 0.0)[0]
+                                            np.array([tau]), ext, 0.0)[0]
         return np.concatenate([plant_rate, np.asarray(law.state_rate(s, ref, z), dtype=float)])
 
     return f

@@ -17,10 +17,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from compliant_damping.analysis import linear
-from compliant_damping.sim import scenarios, simulate
 from compliant_damping.control.controller import JointController
 from compliant_damping.control.laws import make_law
 from compliant_damping.io.metrics import joint_metrics
+from compliant_damping.sim import scenarios, simulate
 
 __all__ = ["KvPoint", "sweep_decoupling_stiffness", "recommend", "log_grid"]
 

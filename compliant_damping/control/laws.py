@@ -43,9 +43,9 @@ from typing import NamedTuple
 
 import numpy as np
 
+from compliant_damping.control.sample import JointSample
 from compliant_damping.dynamics.links import LinkMotion
 from compliant_damping.fields import param
-from compliant_damping.control.sample import JointSample
 
 __all__ = ["LAW_NAMES", "RegulationTarget", "regulation_target", "NominalDrive", "NominalModel", "ChainNominal",
            "Gains", "Law", "MotorPD", "LinkDamping", "DecoupledDamper", "DecoupledImpedance", "check_gains",

@@ -27,8 +27,8 @@ import enum
 import math
 from dataclasses import dataclass, fields
 
-from compliant_damping.fields import param
 from compliant_damping.control.sample import JointSample
+from compliant_damping.fields import param
 
 __all__ = ["SAFE_MODES", "MAX_RAMP_DOWN", "MAX_SLEW_WINDOW", "FaultCode", "Fault", "Limits",
            "SafetyFilter", "relaxations", "motor_accel_bound"]

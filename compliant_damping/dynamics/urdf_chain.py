@@ -19,8 +19,8 @@ from typing import Sequence
 
 import numpy as np
 
-from compliant_damping.io.parameter_files import share_dir
 from compliant_damping.dynamics.links import ForwardDerivatives, LinkDynamics, LinkMotion, RobotModelError, as_vector
+from compliant_damping.io.parameter_files import share_dir
 
 __all__ = ["UrdfChain", "bundled_urdf", "STANDARD_GRAVITY"]
 

@@ -38,16 +38,16 @@ from __future__ import annotations
 import math
 from dataclasses import MISSING, dataclass, field
 
-from compliant_damping.dynamics.elastic_chain import PlaneContact
 from compliant_damping.control.laws import Gains, NominalDrive, NominalModel, check_gains
+from compliant_damping.control.safety import Limits
 from compliant_damping.dynamics.bench_plant import DriveParams, JointParams
+from compliant_damping.dynamics.elastic_chain import PlaneContact
 from compliant_damping.io.parameter_files import (ConfigError, YamlSyntaxError, bundled, flatten, layered_parameters,
                                                   node_parameters, read, share_dir)
 from compliant_damping.io.parameter_keys import (CONTROLLER_JOINT_SETTINGS, CONTROLLER_NODE, CONTROLLER_SETTINGS,
                                                  SIM_JOINT_SETTINGS, SIM_NODE, SIM_SETTINGS, Setting, dataclass_keys,
                                                  unknown_key_errors)
 from compliant_damping.io.robot_section import URDF_KEYS, build_links, describes_robot, robot_source
-from compliant_damping.control.safety import Limits
 from compliant_damping.sim.sensors import SensorParams
 
 __all__ = ["CONTROLLER_NODE", "SIM_NODE", "PACED_EFFORT", "ConfigError", "YamlSyntaxError", "Problems", "Checked",

@@ -14,9 +14,9 @@ import difflib
 from dataclasses import MISSING, dataclass, fields
 
 from compliant_damping.control.laws import LAW_NAMES, Gains, NominalDrive, NominalModel
+from compliant_damping.control.safety import SAFE_MODES, Limits
 from compliant_damping.dynamics.bench_plant import LINK_KEYS, DriveParams, JointParams
 from compliant_damping.io.parameter_files import ConfigError
-from compliant_damping.control.safety import SAFE_MODES, Limits
 from compliant_damping.sim.sensors import SensorParams
 
 __all__ = ["CONTROLLER_NODE", "SIM_NODE", "Setting", "CONTROLLER_SETTINGS", "CONTROLLER_JOINT_SETTINGS",

@@ -70,11 +70,11 @@ from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray
 from std_srvs.srv import Trigger
 
-from compliant_damping.io import config
 from compliant_damping.control import controller, safety
-from compliant_damping.io import joint_state_codec as codec
 from compliant_damping.control.sample import Reference
 from compliant_damping.control.watchdog import ClockStall, Watchdog, stall_timeout
+from compliant_damping.io import config
+from compliant_damping.io import joint_state_codec as codec
 from compliant_damping.nodes import params, spin, startup
 
 RUNTIME_KEYS = re.compile(r"^(law|watchdog_timeout|gain_ramp_time|[^.]+\.(gains|limits)\.\w+)$")

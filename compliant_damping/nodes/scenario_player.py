@@ -45,8 +45,8 @@ from rclpy.qos import QoSProfile
 from sensor_msgs.msg import JointState
 
 from compliant_damping.io import config
-from compliant_damping.sim import scenarios
 from compliant_damping.io import joint_state_codec as codec
+from compliant_damping.sim import scenarios
 
 
 def _ns(stamp) -> int:

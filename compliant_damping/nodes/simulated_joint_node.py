@@ -45,11 +45,11 @@ from rclpy.qos import QoSProfile, qos_profile_sensor_data
 from rosgraph_msgs.msg import Clock as ClockMsg
 from sensor_msgs.msg import JointState
 
+from compliant_damping.dynamics.bench_plant import JointParams
 from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
-from compliant_damping.dynamics.bench_plant import JointParams
-from compliant_damping.sim.plant import Plant
 from compliant_damping.nodes import params, spin, startup
+from compliant_damping.sim.plant import Plant
 
 REPEAT_AFTER = 0.2  # s of wall time without an answering command before the state is sent again
 MAX_CATCH_UP = 20  # periods a late real-time tick may advance at once

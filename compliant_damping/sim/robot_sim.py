@@ -13,10 +13,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements
 from compliant_damping.control.sample import JointSample, Reference
-from compliant_damping.sim.sensors import SensorChannel
+from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements
 from compliant_damping.io.runs import Run
+from compliant_damping.sim.sensors import SensorChannel
 
 __all__ = ["Touchdown", "robot_plant", "scripted_torques", "simulate_robot", "touchdown"]
 

@@ -27,8 +27,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from compliant_damping.dynamics.links import IndependentLinks
 from compliant_damping.control.references import Constant, Cruise, Step
+from compliant_damping.dynamics.links import IndependentLinks
 
 __all__ = ["SCENARIOS", "Scenario", "make", "rest_state"]
 

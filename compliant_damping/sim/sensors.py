@@ -7,8 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from compliant_damping.fields import param
 from compliant_damping.control.sample import JointSample
+from compliant_damping.fields import param
 
 __all__ = ["SensorParams", "SensorChannel"]
 
