@@ -6,13 +6,14 @@ import argparse
 import csv
 import dataclasses
 import json
+import math
 import os
 import sys
 from dataclasses import MISSING
 
 import numpy as np
 
-from compliant_damping.analysis import linear, robot_linear, tuning
+from compliant_damping.analysis import linear, robot_linear, sampled, tuning
 from compliant_damping.io import config, config_check, parameter_keys
 from compliant_damping.control import controller
 from compliant_damping.sim import robot_sim, scenarios, simulate
@@ -154,14 +155,51 @@ def _setpoint(args, sim):
     return q_d
 
 
+def _finite(v: float):
+    """``v``, or None where it is not finite (JSON has no infinity)."""
+    return v if math.isfinite(v) else None
+
+
+def _sampled_json(res) -> dict:
+    """The sampled loop's verdict, eigenvalues and modes (sampled.SampledAnalysis) for --json."""
+    return {"control_rate_hz": res.control_rate, "period": res.map.period, "substeps": res.map.substeps,
+            "delay_ticks": list(res.map.delay_ticks), "stable": res.stable, "spectral_radius": res.spectral_radius,
+            "eigenvalues": [[float(z.real), float(z.imag)] for z in res.eigenvalues],
+            "modes": [{"z": [m.z.real, m.z.imag], "magnitude": m.magnitude, "frequency_hz": _finite(m.frequency_hz),
+                       "damping_ratio": m.damping_ratio, "link_share": m.link_share,
+                       "joint_shares": m.joint_shares.tolist()} for m in res.modes],
+            "dominant_mode": res.modes.index(res.dominant), "least_damped_mode": res.modes.index(res.least_damped)}
+
+
+def _print_sampled(res, joint_names) -> None:
+    """The sampled loop's table and the verdict that decides."""
+    delays = ", ".join(str(d) for d in res.map.delay_ticks)
+    print(f"  sampled at {res.control_rate:g} Hz decides: {'stable' if res.stable else 'UNSTABLE'} "
+          f"(one-period map: {res.map.substeps} RK4 substeps, torque held, sensor delay {delays} tick(s); "
+          f"max |z| = {res.spectral_radius:.6f})")
+    shares = f"  joint shares ({', '.join(joint_names)})" if len(joint_names) > 1 else ""
+    print(f"  {'mode':<6}{'|z|':>10}{'f_n Hz':>9}{'zeta':>8}{'link share':>12}{shares}")
+    for i, m in enumerate(res.modes):
+        tag = (" dominant" if m is res.dominant else "") + (" least damped" if m is res.least_damped else "")
+        tag += "" if m.stable else " GROWS"
+        row = " ".join(f"{v:5.2f}" for v in m.joint_shares) if shares else ""
+        print(f"  {i:<6}{m.magnitude:>10.6f}{m.frequency_hz:>9.3f}{m.damping_ratio:>8.3f}{m.link_share:>12.2f}"
+              f"{'  ' + row if row else ''}{tag}")
+
+
 def cmd_analyze(args) -> int:
-    """Closed-loop poles and modes at the set point (Coulomb off): one joint, or the whole robot with a URDF."""
+    """Closed-loop modes at the set point (Coulomb off), continuous and sampled at the file's control rate: one
+    joint, or the whole robot with a URDF. The sampled loop decides."""
     ctrl, sim = _load(args)
     if _is_robot(ctrl, sim):
         return _analyze_robot(args, ctrl, sim)
     cj, sj = _joint(args, ctrl, sim)
     q_d = sj.initial_position if args.setpoint is None else args.setpoint[0]
-    res = linear.analyze(sj.plant, make_law(ctrl.law, cj.model, cj.gains), q_d)
+    law = make_law(ctrl.law, cj.model, cj.gains)
+    res = linear.analyze(sj.plant, law, q_d)
+    dt = 1.0 / ctrl.control_rate
+    disc = sampled.analyze_joint(sj.plant, law, q_d, control_dt=dt, substeps=sim.substeps,
+                                 delay=sampled.delay_ticks(sj.sensor.delay, dt))
     if args.json:
         print(json.dumps({
             "law": ctrl.law, "joint": cj.name, "setpoint": q_d,
@@ -169,21 +207,24 @@ def cmd_analyze(args) -> int:
             "modes": _modes_json(res),
             "dominant_mode": res.modes.index(res.dominant),
             "least_damped_mode": res.modes.index(res.least_damped),
-            "static_link_stiffness": res.static_link_stiffness}, indent=2))
+            "static_link_stiffness": res.static_link_stiffness,
+            "continuous_stable": res.stable, "decided_by": "sampled", "sampled": _sampled_json(disc)}, indent=2))
         return 0
-    print(f"law {ctrl.law}, joint {cj.name}, set point {q_d:g} rad, {'stable' if res.stable else 'UNSTABLE'} "
-          "(linearised, Coulomb friction off)")
+    print(f"law {ctrl.law}, joint {cj.name}, set point {q_d:g} rad (linearised, Coulomb friction off)")
+    print(f"  continuous view: {'stable' if res.stable else 'UNSTABLE'}")
     print(f"  {'mode':<6}{'f_n Hz':>9}{'zeta':>8}{'link share':>12}")
     for i, m in enumerate(res.modes):
         tag = (" dominant" if m is res.dominant else "") + (" least damped" if m is res.least_damped else "")
         print(f"  {i:<6}{m.frequency_hz:>9.3f}{m.damping_ratio:>8.3f}{m.link_share:>12.2f}{tag}")
     print(f"  static link stiffness {res.static_link_stiffness:.2f} N m/rad; "
           f"2 % settling estimate 4/(zeta w_n) = {4.0 / res.dominant.decay_rate:.3f} s")
+    _print_sampled(disc, [cj.name])
     return 0
 
 
 def _analyze_robot(args, ctrl, sim) -> int:
-    """The coupled closed loop of a URDF robot: poles, modes with joint shares, rendered link stiffness."""
+    """The coupled closed loop of a URDF robot: poles, modes with joint shares, rendered link stiffness, and the
+    sampled loop at the file's control rate, which decides."""
     if args.joint:
         raise ValueError("joint: a robot with coupled links is analysed as a whole; drop --joint")
     q_d = _setpoint(args, sim)
@@ -194,6 +235,9 @@ def _analyze_robot(args, ctrl, sim) -> int:
     least = min(modes, key=lambda m: m.damping_ratio)
     stiffness = robot_linear.rendered_link_stiffness(lin)
     stable = bool(np.all(poles.real < 0.0))
+    dt = 1.0 / ctrl.control_rate
+    disc = sampled.analyze_robot(robot_sim.robot_plant(sim), law, q_d, control_dt=dt, substeps=sim.substeps,
+                                 delays=[sampled.delay_ticks(j.sensor.delay, dt) for j in sim.joints])
     if args.json:
         print(json.dumps({
             "law": ctrl.law, "joints": ctrl.joint_names, "setpoint": q_d, "stable": stable,
@@ -201,10 +245,12 @@ def _analyze_robot(args, ctrl, sim) -> int:
             "modes": [{"frequency_hz": m.frequency_hz, "damping_ratio": m.damping_ratio,
                        "joint_shares": m.joint_shares.tolist()} for m in modes],
             "least_damped_mode": modes.index(least),
-            "rendered_link_stiffness": stiffness.tolist()}, indent=2))
+            "rendered_link_stiffness": stiffness.tolist(),
+            "decided_by": "sampled", "sampled": _sampled_json(disc)}, indent=2))
         return 0
-    print(f"law {ctrl.law}, robot {', '.join(ctrl.joint_names)} at {', '.join(f'{q:g}' for q in q_d)} rad, "
-          f"{'stable' if stable else 'UNSTABLE'} (linearised, Coulomb friction off)")
+    print(f"law {ctrl.law}, robot {', '.join(ctrl.joint_names)} at {', '.join(f'{q:g}' for q in q_d)} rad "
+          "(linearised, Coulomb friction off)")
+    print(f"  continuous view: {'stable' if stable else 'UNSTABLE'}")
     print(f"  {'mode':<6}{'f_n Hz':>9}{'zeta':>8}  joint shares ({', '.join(ctrl.joint_names)})")
     for i, m in enumerate(modes):
         print(f"  {i:<6}{m.frequency_hz:>9.3f}{m.damping_ratio:>8.3f}  "
@@ -212,6 +258,7 @@ def _analyze_robot(args, ctrl, sim) -> int:
     print("  rendered link stiffness (N m/rad):")
     for row in stiffness:
         print("    " + " ".join(f"{v:11.2f}" for v in row))
+    _print_sampled(disc, ctrl.joint_names)
     return 0
 
 
@@ -315,7 +362,8 @@ def parser() -> argparse.ArgumentParser:
     c.add_argument("--layer", action="append", metavar="FILE", help="file layered over FILE, key by key (repeatable)")
     c.add_argument("--json", action="store_true", help="print the problems as JSON")
     c.set_defaults(run=cmd_check_config)
-    a = sub.add_parser("analyze", help="linearise law + joint at the set point: poles, modes, static stiffness")
+    a = sub.add_parser("analyze", help="linearise law + joint at the set point, continuous and sampled (which decides): modes, "
+                       "static stiffness")
     _file_args(a)
     a.add_argument("--joint", help="joint to analyse (default: the first; not for a URDF robot)")
     a.add_argument("--setpoint", type=float, nargs="+", metavar="Q",
