@@ -262,41 +262,67 @@ def _analyze_robot(args, ctrl, sim) -> int:
     return 0
 
 
+def _tuning_boundary(points, cj, sj, control_dt, substeps):
+    """(first unstable k_v of the sweep, the boundary bisected below it) in N m/rad, None where there is none."""
+    bad = tuning.first_unstable(points)
+    if bad is None:
+        return None, None
+    below = [p for p in points if p.stable and p.decoupling_stiffness < bad.decoupling_stiffness]
+    if not below:
+        return bad.decoupling_stiffness, None
+    edge = max(below, key=lambda p: p.decoupling_stiffness).decoupling_stiffness
+    return bad.decoupling_stiffness, tuning.stability_boundary(cj, sj, edge, bad.decoupling_stiffness,
+                                                               control_dt=control_dt, substeps=substeps)
+
+
 def cmd_tune(args) -> int:
-    """Sweep k_v of decoupled_damper: impact torque rate and peak vs the least-damped mode; recommend one."""
+    """Sweep k_v of decoupled_damper: impact torque rate and peak vs the least-damped mode of the loop sampled at
+    the file's control rate; mark unstable points, report where stability ends, recommend a stable one."""
     from tqdm import tqdm
 
     from compliant_damping.io import plots
     ctrl, sim = _load(args)
     cj, sj = _joint(args, ctrl, sim)
     grid = tuning.log_grid(args.kv_min, args.kv_max, args.points)
+    dt = 1.0 / ctrl.control_rate
     with tqdm(total=len(grid), desc="k_v sweep", unit="k_v", file=sys.stderr, disable=args.json) as bar:
-        points = tuning.sweep_decoupling_stiffness(cj, sj, grid, control_dt=1.0 / ctrl.control_rate,
-                                                   substeps=sim.substeps, progress=lambda _: bar.update())
+        points = tuning.sweep_decoupling_stiffness(cj, sj, grid, control_dt=dt, substeps=sim.substeps,
+                                                   progress=lambda _: bar.update())
     best = tuning.recommend(points, args.min_damping_ratio)
+    first_bad, boundary = _tuning_boundary(points, cj, sj, dt, sim.substeps)
     if args.plot:
         plots.plot_tuning(points, best, args.min_damping_ratio, cj.limits, args.plot)
     if args.json:
         print(json.dumps({"law": tuning.LAW, "joint": cj.name, "min_damping_ratio": args.min_damping_ratio,
                           "limits": {"torque": cj.limits.torque, "torque_rate": cj.limits.torque_rate},
                           "points": [dataclasses.asdict(p) for p in points],
-                          "recommended_decoupling_stiffness": None if best is None else best.decoupling_stiffness},
-                         indent=2))
+                          "recommended_decoupling_stiffness": None if best is None else best.decoupling_stiffness,
+                          "judged_on": "sampled", "control_rate_hz": ctrl.control_rate, "substeps": sim.substeps,
+                          "first_unstable_decoupling_stiffness": first_bad,
+                          "stability_boundary_decoupling_stiffness": boundary}, indent=2))
         return 0
-    print(f"decoupled_damper on {cj.name}: end_stop_impact vs least-damped mode "
-          f"(limits {cj.limits.torque:g} N m, {cj.limits.torque_rate:g} N m/s)")
+    print(f"decoupled_damper on {cj.name}: end_stop_impact vs least-damped mode of the loop sampled at "
+          f"{ctrl.control_rate:g} Hz (limits {cj.limits.torque:g} N m, {cj.limits.torque_rate:g} N m/s)")
     print(f"{'k_v N m/rad':>12}{'peak rate N m/s':>17}{'peak |tau| N m':>16}{'zeta':>7}{'f_n Hz':>8}"
-          f"{'link share':>11}  limits")
+          f"{'link share':>11}{'max |z|':>10}{'zeta cont':>10}  limits  sampled loop")
     for p in points:
         mark = " <- recommended" if p is best else ""
         print(f"{p.decoupling_stiffness:>12.4g}{p.peak_torque_rate:>17.0f}{p.peak_torque:>16.2f}"
-              f"{p.damping_ratio:>7.3f}{p.mode_frequency_hz:>8.2f}{p.link_share:>11.2f}  "
-              f"{'ok' if p.within_limits else 'HIT'}{mark}")
-    if best is None:
-        print(f"no k_v in the range keeps zeta >= {args.min_damping_ratio} within the limits")
+              f"{p.damping_ratio:>7.3f}{p.mode_frequency_hz:>8.2f}{p.link_share:>11.2f}{p.spectral_radius:>10.5f}"
+              f"{p.continuous_damping_ratio:>10.3f}  {'ok ' if p.within_limits else 'HIT'}     "
+              f"{'stable' if p.stable else 'UNSTABLE'}{mark}")
+    if first_bad is None:
+        print(f"the sampled loop is stable over the whole range at {ctrl.control_rate:g} Hz")
     else:
-        print(f"recommended: decoupling_stiffness {best.decoupling_stiffness:.4g} N m/rad (softest with "
-              f"zeta >= {args.min_damping_ratio}, common practice, and inside the torque and slew limits)")
+        edge = "" if boundary is None else f"; stability ends at k_v = {boundary:.4g} N m/rad (bisected)"
+        print(f"at {ctrl.control_rate:g} Hz the sampled loop is unstable from k_v = {first_bad:.4g} N m/rad "
+              f"of the sweep on{edge}")
+    if best is None:
+        print(f"no k_v in the range keeps a stable sampled loop with zeta >= {args.min_damping_ratio} within the limits")
+    else:
+        print(f"recommended: decoupling_stiffness {best.decoupling_stiffness:.4g} N m/rad (softest with a stable "
+              f"sampled loop, zeta >= {args.min_damping_ratio}, common practice, and inside the torque and slew "
+              "limits)")
     return 0
 
 
@@ -370,7 +396,8 @@ def parser() -> argparse.ArgumentParser:
                    help="link set point, rad, one per joint for a URDF robot (default: the initial positions)")
     a.add_argument("--json", action="store_true", help="print the result as JSON")
     a.set_defaults(run=cmd_analyze)
-    t = sub.add_parser("tune", help="sweep decoupled_damper's k_v: impact torque vs link damping, recommend one")
+    t = sub.add_parser("tune", help="sweep decoupled_damper's k_v: impact torque vs damping of the sampled loop, "
+                       "recommend a stable one")
     _file_args(t, law=False)
     t.add_argument("--joint", help="joint to tune (default: the first)")
     t.add_argument("--kv-min", type=float, default=10.0, help="softest k_v, N m/rad (default 10)")

@@ -27,7 +27,7 @@ def test_tune_json_recommends_softest_admissible_kv():
     points = out["points"]
     assert [p["decoupling_stiffness"] for p in points] == pytest.approx([50.0 * 2.0**i for i in range(7)])
     ok = [p["decoupling_stiffness"] for p in points
-          if p["damping_ratio"] >= out["min_damping_ratio"] and p["within_limits"]]
+          if p["stable"] and p["damping_ratio"] >= out["min_damping_ratio"] and p["within_limits"]]
     assert out["recommended_decoupling_stiffness"] == min(ok)
     # the trade-off: the stiffest k_v hits the slew limit on impact, the softest damps the link worst
     assert not points[-1]["within_limits"]
