@@ -318,7 +318,8 @@ def cmd_tune(args) -> int:
         print(f"at {ctrl.control_rate:g} Hz the sampled loop is unstable from k_v = {first_bad:.4g} N m/rad "
               f"of the sweep on{edge}")
     if best is None:
-        print(f"no k_v in the range keeps a stable sampled loop with zeta >= {args.min_damping_ratio} within the limits")
+        print(f"no k_v in the range keeps a stable sampled loop with zeta >= {args.min_damping_ratio} "
+              "within the limits")
     else:
         print(f"recommended: decoupling_stiffness {best.decoupling_stiffness:.4g} N m/rad (softest with a stable "
               f"sampled loop, zeta >= {args.min_damping_ratio}, common practice, and inside the torque and slew "
@@ -388,8 +389,8 @@ def parser() -> argparse.ArgumentParser:
     c.add_argument("--layer", action="append", metavar="FILE", help="file layered over FILE, key by key (repeatable)")
     c.add_argument("--json", action="store_true", help="print the problems as JSON")
     c.set_defaults(run=cmd_check_config)
-    a = sub.add_parser("analyze", help="linearise law + joint at the set point, continuous and sampled (which decides): modes, "
-                       "static stiffness")
+    a = sub.add_parser("analyze", help="linearise law + joint at the set point, continuous and sampled "
+                       "(which decides): modes, static stiffness")
     _file_args(a)
     a.add_argument("--joint", help="joint to analyse (default: the first; not for a URDF robot)")
     a.add_argument("--setpoint", type=float, nargs="+", metavar="Q",
