@@ -50,7 +50,8 @@ def plot_runs(runs: dict, path, title: str | None = None) -> Path:
 
 
 def plot_tuning(points, best, min_zeta, limits, path) -> Path:
-    """Two panels over k_v: impact peak torque rate and least-damped damping ratio (tuning.sweep points)."""
+    """Two panels over k_v: impact peak torque rate and the sampled loop's least-damped damping ratio
+    (tuning.sweep points; unstable points crossed out)."""
     plt = _pyplot()
     kv = [p.decoupling_stiffness for p in points]
     fig, (top, bottom) = plt.subplots(2, 1, sharex=True, figsize=(6.0, 5.0))
@@ -58,13 +59,17 @@ def plot_tuning(points, best, min_zeta, limits, path) -> Path:
     top.axhline(limits.torque_rate, color="r", ls="--", label="slew limit")
     top.set_ylabel("impact peak |dtau_m/dt| (N m/s)")
     top.legend()
-    bottom.semilogx(kv, [p.damping_ratio for p in points], "o-")
+    bottom.semilogx(kv, [p.damping_ratio for p in points], "o-", label="sampled loop")
+    bad = [p for p in points if not p.stable]
+    if bad:
+        bottom.plot([p.decoupling_stiffness for p in bad], [p.damping_ratio for p in bad], "rx", ms=9,
+                    label="unstable (sampled)")
     bottom.axhline(min_zeta, color="r", ls="--", label=f"zeta = {min_zeta}")
     if best is not None:
         for ax in (top, bottom):
             ax.axvline(best.decoupling_stiffness, color="g", ls=":")
     bottom.set_xlabel("decoupling stiffness k_v (N m/rad)")
-    bottom.set_ylabel("least-damped zeta")
+    bottom.set_ylabel("least-damped zeta (sampled)")
     bottom.legend()
     fig.tight_layout()
     fig.savefig(path, dpi=120)
