@@ -133,7 +133,10 @@ def advance(x, params, tau_m, ext, t0, h, n):
     """Advance all joints ``n`` classical RK4 steps of ``h`` seconds from time ``t0``, in place.
 
     ``tau_m`` (N m, one per joint) is held constant over the interval and saturated
-    at each joint's driver limit. Returns the applied (saturated) torques.
+    at each joint's driver limit. The scripted torques ``ext`` are held over each RK4 step at
+    their value at its midpoint, so a pulse whose ends lie on the step grid delivers exactly its
+    impulse (sampled at the step's end as well, a pulse ending there lost h/6 of its torque, 1/60
+    of a one-period pulse at 10 substeps). Returns the applied (saturated) torques.
     """
     applied = np.empty(x.shape[0])
     for j in range(x.shape[0]):
@@ -143,16 +146,14 @@ def advance(x, params, tau_m, ext, t0, h, n):
         q, dq, th, dth = x[j, 0], x[j, 1], x[j, 2], x[j, 3]
         for i in range(n):
             t = t0 + i * h
-            e1 = _scripted_torque(ext, j, t)
-            e2 = _scripted_torque(ext, j, t + 0.5 * h)
-            e4 = _scripted_torque(ext, j, t + h)
-            a1, b1 = _accelerations(p, q, dq, th, dth, tau, e1)
+            e = _scripted_torque(ext, j, t + 0.5 * h)  # held over the step
+            a1, b1 = _accelerations(p, q, dq, th, dth, tau, e)
             q2, dq2, th2, dth2 = q + 0.5 * h * dq, dq + 0.5 * h * a1, th + 0.5 * h * dth, dth + 0.5 * h * b1
-            a2, b2 = _accelerations(p, q2, dq2, th2, dth2, tau, e2)
+            a2, b2 = _accelerations(p, q2, dq2, th2, dth2, tau, e)
             q3, dq3, th3, dth3 = q + 0.5 * h * dq2, dq + 0.5 * h * a2, th + 0.5 * h * dth2, dth + 0.5 * h * b2
-            a3, b3 = _accelerations(p, q3, dq3, th3, dth3, tau, e2)
+            a3, b3 = _accelerations(p, q3, dq3, th3, dth3, tau, e)
             q4, dq4, th4, dth4 = q + h * dq3, dq + h * a3, th + h * dth3, dth + h * b3
-            a4, b4 = _accelerations(p, q4, dq4, th4, dth4, tau, e4)
+            a4, b4 = _accelerations(p, q4, dq4, th4, dth4, tau, e)
             q += h / 6.0 * (dq + 2.0 * dq2 + 2.0 * dq3 + dq4)
             dq += h / 6.0 * (a1 + 2.0 * a2 + 2.0 * a3 + a4)
             th += h / 6.0 * (dth + 2.0 * dth2 + 2.0 * dth3 + dth4)

@@ -222,7 +222,9 @@ class ElasticChain:
         """Advance ``x`` (C-ordered floats) in place by ``steps`` RK4 steps of ``h`` s from ``t0``;
         returns the applied torques.
 
-        ``external(t)`` gives the scripted link torques (N m, length n) at time t.
+        ``external(t)`` gives the scripted link torques (N m, length n) at time t; each RK4 step
+        holds its value at the step's midpoint (as dynamics.bench_plant.advance), so a pulse whose
+        ends lie on the step grid delivers exactly its impulse.
         """
         lim = self.e.driver_torque_limit
         tau = np.clip(np.asarray(tau_m, dtype=float), -lim, lim)
@@ -230,11 +232,11 @@ class ElasticChain:
         k1, k2, k3, k4 = self._k
         for i in range(steps):
             t = t0 + i * h
-            mid = external(t + 0.5 * h)
-            self._stage(x, x, 0.0, external(t), t, k1)
-            self._stage(x, k1, 0.5 * h, mid, t + 0.5 * h, k2)
-            self._stage(x, k2, 0.5 * h, mid, t + 0.5 * h, k3)
-            self._stage(x, k3, h, external(t + h), t + h, k4)
+            held = external(t + 0.5 * h)
+            self._stage(x, x, 0.0, held, t, k1)
+            self._stage(x, k1, 0.5 * h, held, t + 0.5 * h, k2)
+            self._stage(x, k2, 0.5 * h, held, t + 0.5 * h, k3)
+            self._stage(x, k3, h, held, t + h, k4)
             _rk4_update(x, h, k1, k2, k3, k4)
         return tau
 

@@ -31,7 +31,7 @@ def scripted_torques(rows: np.ndarray, n: int):
     """``external(t)``: link torques (N m, length n) of scenario rows ``[joint, t_on, t_off, torque]``, on [t_on, t_off).
 
     The torques are piecewise constant between the rows' switching times, so each piece is summed
-    once here and ``external(t)`` looks its piece up (the plant asks three times per RK4 step).
+    once here and ``external(t)`` looks its piece up (the plant asks once per RK4 step).
     The arrays it returns are shared and read-only.
     """
     rows = np.asarray(rows, dtype=float).reshape(-1, 4)
