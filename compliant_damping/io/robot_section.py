@@ -119,5 +119,5 @@ def build_links(source: RobotSource | None, joint_names, link_params=()):
     from compliant_damping.dynamics.urdf_chain import UrdfChain
     try:
         return UrdfChain(source.xml, joint_names, source=source.origin)
-    except RobotModelError as err:
-        raise ConfigError(source.key, str(err)) from None
+    except RobotModelError as err:  # the reason alone where it names the key itself (robot_description)
+        raise ConfigError(source.key, err.reason if err.key == source.key else str(err)) from None
