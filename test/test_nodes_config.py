@@ -1,4 +1,5 @@
-"""Both nodes refuse a misspelt or unknown key given to them, as ``cdamp`` does.
+"""Both nodes refuse a misspelt or unknown key given to them, as ``cdamp`` does; the controller
+refuses a URDF robot (not run over ROS yet), the simulated joint runs one and refuses a broken one.
 
 rcl keeps every value a parameter file or ``parameter_overrides`` gives a node, declared or
 not (ROS 2 parameter rules: overrides are per node name, independent of declaration); the nodes
@@ -104,12 +105,11 @@ def test_controller_with_a_urdf_robot_constructs_then_refuses_to_configure(ros, 
 
 
 @pytest.mark.parametrize("key", ["robot_urdf", "robot_description"])
-def test_simulated_joint_with_a_urdf_robot_refuses_to_start(ros, key):
-    with pytest.raises(config.ConfigError) as info:
-        ros.start(SimulatedJointNode, {**_robot_parameters(config.SIM_NODE, key), "lock_step": True})
-    assert info.value.key == key
-    assert "simulated_joint node does not run URDF robots yet" in info.value.reason
-    assert "offline" in info.value.reason
+def test_simulated_joint_runs_a_urdf_robot(ros, key):
+    """The controller's refusal above is the controller's only: the simulated joint runs the pendulum URDF."""
+    sim = ros.start(SimulatedJointNode, {**_robot_parameters(config.SIM_NODE, key), "lock_step": True})
+    assert sim.setup.links.joint_names == ("knee",) and sim.setup.urdf_source is not None
+    assert not sim.has_parameter("knee.link_inertia")  # the URDF gives the links: drive keys only
 
 
 def test_naming_a_urdf_at_run_time_is_refused(ros):
@@ -122,16 +122,35 @@ def test_naming_a_urdf_at_run_time_is_refused(ros):
     assert ctrl.trigger_configure().name == "SUCCESS"  # still the built-in knee
 
 
-def test_simulated_joint_executable_refuses_a_robot_file(tmp_path):
+def _leg_with(**changes) -> dict:
+    """The bundled leg's simulated_joint section (config/compliant_leg.yaml), flat, with ``changes``."""
+    return {**config.node_parameters(config.read(config.bundled("compliant_leg.yaml")), config.SIM_NODE), **changes}
+
+
+def _renamed_ankle() -> dict:
+    """The leg's section with its ankle_pitch joint called toe_pitch, a joint the leg's URDF lacks."""
+    values = _leg_with()
+    values["joint_names"] = ["hip_pitch", "knee_pitch", "toe_pitch"]
+    return {k.replace("ankle_pitch.", "toe_pitch."): v for k, v in values.items()}
+
+
+@pytest.mark.parametrize("values, key, said", [
+    (lambda: _leg_with(robot_urdf="", robot_description="<robot name='leg'><link name='base'>"),
+     "robot_description", "not a well-formed URDF"),
+    (_renamed_ankle, "robot_urdf", "toe_pitch: no such joint in"),
+], ids=["robot_description_does_not_parse", "joint_missing_from_the_urdf"])
+def test_simulated_joint_executable_refuses_a_broken_robot(tmp_path, values, key, said):
     """The executable exits 2 with the key and the reason, no traceback (as for any parameter error)."""
+    pytest.importorskip("pinocchio", reason="the control below builds the leg's URDF chain with Pinocchio")
+    assert config.sim_setup(_leg_with()).links.joint_names == ("hip_pitch", "knee_pitch", "ankle_pitch")  # control
     path = tmp_path / "robot.yaml"
-    path.write_text(yaml.safe_dump({f"/**/{config.SIM_NODE}": {
-        "ros__parameters": _robot_parameters(config.SIM_NODE, "robot_urdf")}}))
+    path.write_text(yaml.safe_dump({f"/**/{config.SIM_NODE}": {"ros__parameters": values()}}))
     env = {**os.environ, "PYTHONPATH": os.pathsep.join([os.getcwd(), os.environ.get("PYTHONPATH", "")])}
     run = subprocess.run([sys.executable, "-m", "compliant_damping.nodes.simulated_joint_node", "--ros-args",
                           "--params-file", str(path)], capture_output=True, text=True, timeout=60, env=env)
+    print(run.stderr.strip())
     assert run.returncode == 2
-    assert "parameter error: robot_urdf: the simulated_joint node does not run URDF robots yet" in run.stderr
+    assert f"parameter error: {key}: {said}" in run.stderr
     assert "Traceback" not in run.stderr
 
 

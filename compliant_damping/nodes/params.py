@@ -8,9 +8,11 @@ The nodes are therefore built with :data:`NODE_OPTIONS` (rclpy declares every gi
 construction), :func:`declare` re-declares the known keys with their descriptions and leaves the
 others in the key list, so config refuses them by name with a did-you-mean.
 
-Both nodes build their setups with :func:`setup`, at start-up and for every run-time change. They
-run the built-in joints only for now: a parameter set that names a URDF (the robot section,
-io/robot_section.py) is refused there, naming its key.
+Both nodes build their setups with :func:`setup`, at start-up and for every run-time change. The
+simulated joint runs the built-in joints or a URDF robot (the robot section, io/robot_section.py);
+the controller runs the built-in joints only for now: a controller parameter set that names a URDF
+is refused there, naming its key. A node given a URDF declares the drive's per-joint keys only
+(parameter_keys.parameter_specs with ``robot``), so a link key is refused as the URDF's.
 """
 from __future__ import annotations
 
@@ -40,7 +42,7 @@ def declare(node, node_name: str) -> list:
     names = _redeclare(node, "joint_names", Parameter.Type.STRING_ARRAY,
                        ParameterDescriptor(description=doc, read_only=True)).value or []
     keys = ["joint_names"]
-    for spec in parameter_keys.parameter_specs(node_name, names):
+    for spec in parameter_keys.parameter_specs(node_name, names, _names_robot(node, node_name)):
         if spec.key == "joint_names":
             continue
         default = None if spec.default is MISSING else spec.default
@@ -63,9 +65,16 @@ def unknown_keys(node, node_name: str, changes) -> str | None:
     declared (see the module notes), so ``ros2 param set`` reaches the callbacks with it.
     """
     names = _get(node, "joint_names").value or []
-    known = {s.key for s in parameter_keys.parameter_specs(node_name, names)}
+    robot = _names_robot(node, node_name)
+    known = {s.key for s in parameter_keys.parameter_specs(node_name, names, robot)}
     unknown = sorted(p.name for p in changes if p.name not in known | ROS_OWN)
-    return str(parameter_keys.unknown_key(unknown[0], node_name, names)) if unknown else None
+    return str(parameter_keys.unknown_key(unknown[0], node_name, names, robot)) if unknown else None
+
+
+def _names_robot(node, node_name: str) -> bool:
+    """Whether the node's current values of its URDF keys name a robot (robot_section.describes_robot)."""
+    return describes_robot({k: node.get_parameter(k).value for k in URDF_KEYS[node_name] if node.has_parameter(k)},
+                           node_name)
 
 
 def values(node, keys, changes=()) -> dict:
@@ -85,11 +94,12 @@ def setup(node, node_name: str, keys, changes=()):
     Raises
     ------
     config.ConfigError
-        Any problem config finds; before those, a URDF robot (robot_section.describes_robot),
-        naming the key that gives it: the nodes do not run URDF robots yet.
+        Any problem config finds (for a URDF robot of the simulated joint: a URDF that does not
+        parse or lacks a joint, naming the key that gives it); for the controller before those,
+        a URDF robot (robot_section.describes_robot), naming the key: it does not run URDF robots yet.
     """
     flat = values(node, keys, changes)
-    if describes_robot(flat, node_name):
+    if node_name == config.CONTROLLER_NODE and describes_robot(flat, node_name):
         key = next(k for k in URDF_KEYS[node_name] if flat.get(k))
         raise config.ConfigError(key, f"the {node_name} node does not run URDF robots yet (they run offline for "
                                       "now: cdamp simulate, cdamp analyze); leave "

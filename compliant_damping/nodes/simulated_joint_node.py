@@ -1,5 +1,7 @@
 """``simulated_joint``: the joints of the ``simulated_joint`` parameter section, stepped with
-plant.Plant (bench_plant.advance with substeps and sensors.SensorChannel: the offline simulator's code).
+plant.Plant: the built-in bench joints (bench_plant.advance, the offline simulator's code) or a URDF
+robot (``robot_urdf`` or ``robot_description``: dynamics.elastic_chain.ElasticChain with the
+section's floor, the offline robot simulator's plant), with substeps and sensors.SensorChannel.
 
 Topics (relative names):
 
@@ -14,11 +16,14 @@ Topics (relative names):
   name, delivered as a rectangular pulse over one state period from header.stamp (or at once).
 * ``/clock`` out (rosgraph_msgs/Clock) in lock-step mode.
 
-Parameters: parameter_keys.parameter_specs. The plant keys (``<joint>.stop_lower``, ``<joint>.stop_upper``
-to move the end stops, and every other model.JointParams field) change at run time, validated by
-config.sim_setup, e.g. ``ros2 param set /simulated_joint knee.stop_upper 0.5``; the rest is fixed.
-URDF robots are not run yet: ``robot_urdf`` or ``robot_description`` set refuses the start,
-naming the key (params.setup).
+Parameters: parameter_keys.parameter_specs. The plant keys change at run time, validated by
+config.sim_setup, e.g. ``ros2 param set /simulated_joint knee.stop_upper 0.5``: per joint every field
+of its plant parameters (bench_plant.JointParams for a bench joint, bench_plant.DriveParams for a
+URDF robot's, whose links the URDF gives), ``<joint>.stop_lower`` and ``<joint>.stop_upper`` moving
+the end stops; on a URDF robot with a floor (``contact.frame``) also ``contact.height`` (m, finite),
+which moves the floor from the next period on (plant.Plant.set_floor_height). The rest is fixed.
+A refused change keeps the old value and says why. A URDF that does not parse or lacks a joint of
+``joint_names`` refuses the start, naming its key (config.sim_setup; the executable exits 2).
 
 Modes:
 
@@ -45,7 +50,6 @@ from rclpy.qos import QoSProfile, qos_profile_sensor_data
 from rosgraph_msgs.msg import Clock as ClockMsg
 from sensor_msgs.msg import JointState
 
-from compliant_damping.dynamics.bench_plant import JointParams
 from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
 from compliant_damping.nodes import params, spin, startup
@@ -53,6 +57,7 @@ from compliant_damping.sim.plant import Plant
 
 REPEAT_AFTER = 0.2  # s of wall time without an answering command before the state is sent again
 MAX_CATCH_UP = 20  # periods a late real-time tick may advance at once
+FLOOR_HEIGHT = "contact.height"  # the floor's run-time key
 
 
 def _ns(stamp) -> int:
@@ -68,7 +73,9 @@ class SimulatedJointNode(Node):
         names = self.setup.joint_names
         self._commands = [f"{n}_motor" for n in names]
         self._latest = [(0.0, -math.inf)] * len(names)  # (torque N m, arrival s) per joint
-        self._plant_keys = {f"{n}.{f.name}" for n in names for f in fields(JointParams)}
+        self._plant_keys = {f"{j.name}.{f.name}" for j in self.setup.joints for f in fields(j.plant)}
+        if self.setup.contact is not None:
+            self._plant_keys.add(FLOOR_HEIGHT)
         self._period_ns = round(1e9 * self.plant.period)
         lock = self.setup.lock_step
         qos = QoSProfile(depth=1000) if lock else qos_profile_sensor_data  # deep: recorders may lag
@@ -158,6 +165,8 @@ class SimulatedJointNode(Node):
         except config.ConfigError as err:
             return str(err)
         self.plant.set_joints(setup.joints)
+        if setup.contact is not None and setup.contact.height != self.plant.floor.height:
+            self.plant.set_floor_height(setup.contact.height)
         self.setup = setup
         return None
 
