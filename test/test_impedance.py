@@ -2,7 +2,10 @@
 built here by hand from the joint's equations and the design notes' laws, hand-derived static balances
 (series springs, handbook formula), and dense numpy scans of the velocity admittance."""
 import dataclasses
+import json
 import math
+import subprocess
+import sys
 
 import control
 import numpy as np
@@ -179,3 +182,59 @@ def test_frequency_grid_ends_at_half_the_control_rate():
     assert np.allclose(np.diff(np.log(f)), math.log(5000.0) / 4)
     with pytest.raises(linear.AnalysisError, match="frequency range"):
         impedance.frequency_grid(0.1)
+
+
+def _cdamp(*args, check=True):
+    return subprocess.run([sys.executable, "-m", "compliant_damping.cli", *args], capture_output=True, text=True,
+                          check=check)
+
+
+def test_cli_impedance_json_fields_and_values():
+    """cdamp analyze --impedance --json, motor_pd on the bundled joint at q = 0: the impedance object's fields,
+    its static stiffness k K/(k + K) + m g0 l = 152 N m/rad (series springs, handbook formula), the passive verdict
+    (spring-damper network), and the grid from 0.1 Hz to half the 1 kHz control rate."""
+    out = json.loads(_cdamp("analyze", "--law", "motor_pd", "--impedance", "--json").stdout)["impedance"]
+    assert {"joint", "frequency_hz", "magnitude", "phase_deg", "admittance", "static_stiffness",
+            "passivity"} <= set(out)
+    assert out["joint"] == "knee"
+    assert out["frequency_hz"][0] == pytest.approx(0.1) and out["frequency_hz"][-1] == pytest.approx(500.0)
+    assert len(out["magnitude"]) == len(out["phase_deg"]) == len(out["admittance"]) == len(out["frequency_hz"])
+    assert out["static_stiffness"] == pytest.approx(152.0, rel=1e-6)
+    y0 = complex(*out["admittance"][0])
+    assert out["magnitude"][0] == pytest.approx(1.0 / abs(y0), rel=1e-12)
+    assert out["passivity"]["passive"] is True and out["passivity"]["tolerance"] == 1e-9
+    assert {"worst_frequency_hz", "worst_real_part"} <= set(out["passivity"])
+    plain = json.loads(_cdamp("analyze", "--law", "motor_pd", "--json").stdout)
+    assert "impedance" not in plain  # only on request
+
+
+def test_cli_impedance_robot_diagonal():
+    """URDF leg: one diagonal entry per joint; its static value 1/Y_jj(0) is the inverse of the compliance matrix's
+    diagonal, (K_r^-1)_jj^-1 with K_r the rendered link stiffness matrix the same run prints (matrix inverse)."""
+    leg = str(config.bundled().parent / "compliant_leg.yaml")
+    out = json.loads(_cdamp("analyze", "--config", leg, "--impedance", "--json").stdout)
+    imp = out["impedance"]
+    assert imp["kind"] == "diagonal" and list(imp["joints"]) == out["joints"]
+    compliance = np.linalg.inv(np.array(out["rendered_link_stiffness"]))
+    for j, name in enumerate(out["joints"]):
+        assert imp["joints"][name]["static_stiffness"] == pytest.approx(1.0 / compliance[j, j], rel=1e-6)
+
+
+@pytest.mark.parametrize("suffix", ["png", "svg"])
+def test_cli_plot_writes_png_and_svg(tmp_path, suffix):
+    """The Bode plot file exists, is not empty and starts with its format's signature (PNG magic bytes, SVG XML)."""
+    path = tmp_path / f"bode.{suffix}"
+    run = _cdamp("analyze", "--impedance", "--plot", str(path))
+    assert f"wrote {path}" in run.stdout and "static stiffness" in run.stdout
+    data = path.read_bytes()
+    assert len(data) > 0
+    assert data.startswith(b"\x89PNG\r\n\x1a\n") if suffix == "png" else b"<svg" in data[:2000]
+
+
+def test_cli_plot_refuses_other_extensions(tmp_path):
+    """A .txt plot path is refused with exit 2 and a message naming the accepted extensions; nothing is written."""
+    path = tmp_path / "bode.txt"
+    run = _cdamp("analyze", "--impedance", "--plot", str(path), check=False)
+    assert run.returncode == 2 and ".png or .svg" in run.stderr and not path.exists()
+    run = _cdamp("analyze", "--plot", str(tmp_path / "bode.png"), check=False)
+    assert run.returncode == 2 and "--impedance" in run.stderr
