@@ -13,7 +13,7 @@ from dataclasses import MISSING
 
 import numpy as np
 
-from compliant_damping.analysis import linear, robot_linear, sampled, tuning
+from compliant_damping.analysis import impedance, linear, robot_linear, sampled, tuning
 from compliant_damping.control import controller
 from compliant_damping.control.laws import LAW_NAMES, make_law
 from compliant_damping.io import config, config_check, parameter_keys
@@ -187,10 +187,52 @@ def _print_sampled(res, joint_names) -> None:
               f"{'  ' + row if row else ''}{tag}")
 
 
+def _impedance_request(args):
+    """The frequency grid (Hz) for --impedance, or None without it; checks --plot's path first."""
+    if args.plot and not args.impedance:
+        raise ValueError("plot: --plot draws the rendered impedance; add --impedance")
+    if args.plot:
+        from compliant_damping.io import plots
+        plots.bode_format(args.plot)
+    return args.impedance
+
+
+def _impedance_json(imp) -> dict:
+    """One rendered impedance (impedance.RenderedImpedance) for --json: the whole grid and the verdicts."""
+    p = imp.passivity
+    return {"frequency_hz": imp.frequency_hz.tolist(), "magnitude": imp.magnitude.tolist(),
+            "phase_deg": imp.phase_deg.tolist(),
+            "admittance": [[float(y.real), float(y.imag)] for y in imp.admittance],
+            "static_stiffness": imp.static_stiffness,
+            "passivity": {"passive": p.passive, "worst_frequency_hz": p.worst_frequency_hz,
+                          "worst_real_part": p.worst_real_part, "tolerance": p.tolerance}}
+
+
+def _print_impedance(imp, label: str, rows: int = 7) -> None:
+    """A few frequencies of the grid (|Z|, phase), the static stiffness and the passivity verdict."""
+    f = imp.frequency_hz
+    print(f"  rendered link impedance {label} (continuous loop, {f[0]:g} Hz to {f[-1]:g} Hz = half the control "
+          "rate)")
+    print(f"  {'f Hz':>10}{'|Z| N m/rad':>14}{'phase deg':>11}")
+    for i in np.unique(np.round(np.linspace(0, len(f) - 1, rows)).astype(int)):
+        print(f"  {f[i]:>10.4g}{imp.magnitude[i]:>14.5g}{imp.phase_deg[i]:>11.2f}")
+    p = imp.passivity
+    verdict = "passive" if p.passive else "NOT passive"
+    print(f"  static stiffness {imp.static_stiffness:.4f} N m/rad; velocity admittance {verdict} over the range "
+          f"(worst Re Y_v = {p.worst_real_part:.3e} rad/(N m s) at {p.worst_frequency_hz:.4g} Hz)")
+
+
+def _plot_impedance(args, curves: dict, title: str) -> None:
+    """--plot: the Bode plot of ``curves`` (written before any output, so a failing plot prints nothing)."""
+    from compliant_damping.io import plots
+    plots.plot_impedance(curves, args.plot, title)
+
+
 def cmd_analyze(args) -> int:
     """Closed-loop modes at the set point (Coulomb off), continuous and sampled at the file's control rate: one
     joint, or the whole robot with a URDF. The sampled loop decides."""
     ctrl, sim = _load(args)
+    wants_impedance = _impedance_request(args)
     if _is_robot(ctrl, sim):
         return _analyze_robot(args, ctrl, sim)
     cj, sj = _joint(args, ctrl, sim)
@@ -200,7 +242,12 @@ def cmd_analyze(args) -> int:
     dt = 1.0 / ctrl.control_rate
     disc = sampled.analyze_joint(sj.plant, law, q_d, control_dt=dt, substeps=sim.substeps,
                                  delay=sampled.delay_ticks(sj.sensor.delay, dt))
+    imp = impedance.rendered_impedance(res.linear, impedance.frequency_grid(ctrl.control_rate)) \
+        if wants_impedance else None
+    if args.plot:
+        _plot_impedance(args, {f"{ctrl.law}, {cj.name}": imp}, f"rendered link impedance at q_d = {q_d:g} rad")
     if args.json:
+        extra = {} if imp is None else {"impedance": {"joint": cj.name, **_impedance_json(imp)}}
         print(json.dumps({
             "law": ctrl.law, "joint": cj.name, "setpoint": q_d,
             "poles": [[float(p.real), float(p.imag)] for p in res.poles],
@@ -208,7 +255,8 @@ def cmd_analyze(args) -> int:
             "dominant_mode": res.modes.index(res.dominant),
             "least_damped_mode": res.modes.index(res.least_damped),
             "static_link_stiffness": res.static_link_stiffness,
-            "continuous_stable": res.stable, "decided_by": "sampled", "sampled": _sampled_json(disc)}, indent=2))
+            "continuous_stable": res.stable, "decided_by": "sampled", "sampled": _sampled_json(disc), **extra},
+            indent=2))
         return 0
     print(f"law {ctrl.law}, joint {cj.name}, set point {q_d:g} rad (linearised, Coulomb friction off)")
     print(f"  continuous view: {'stable' if res.stable else 'UNSTABLE'}")
@@ -219,6 +267,10 @@ def cmd_analyze(args) -> int:
     print(f"  static link stiffness {res.static_link_stiffness:.2f} N m/rad; "
           f"2 % settling estimate 4/(zeta w_n) = {4.0 / res.dominant.decay_rate:.3f} s")
     _print_sampled(disc, [cj.name])
+    if imp is not None:
+        _print_impedance(imp, f"of {cj.name}")
+    if args.plot:
+        print(f"  wrote {args.plot}")
     return 0
 
 
@@ -238,7 +290,13 @@ def _analyze_robot(args, ctrl, sim) -> int:
     dt = 1.0 / ctrl.control_rate
     disc = sampled.analyze_robot(robot_sim.robot_plant(sim), law, q_d, control_dt=dt, substeps=sim.substeps,
                                  delays=[sampled.delay_ticks(j.sensor.delay, dt) for j in sim.joints])
+    grid = impedance.frequency_grid(ctrl.control_rate)
+    diagonal = dict(zip(ctrl.joint_names, impedance.robot_impedance(lin, grid))) if args.impedance else {}
+    if args.plot:
+        _plot_impedance(args, diagonal, f"{ctrl.law}: rendered link impedance, diagonal q_j / tau_ext,j")
     if args.json:
+        extra = {"impedance": {"kind": "diagonal", "joints": {name: _impedance_json(imp) for name, imp in
+                                                              diagonal.items()}}} if diagonal else {}
         print(json.dumps({
             "law": ctrl.law, "joints": ctrl.joint_names, "setpoint": q_d, "stable": stable,
             "poles": [[float(p.real), float(p.imag)] for p in poles],
@@ -246,7 +304,7 @@ def _analyze_robot(args, ctrl, sim) -> int:
                        "joint_shares": m.joint_shares.tolist()} for m in modes],
             "least_damped_mode": modes.index(least),
             "rendered_link_stiffness": stiffness.tolist(),
-            "decided_by": "sampled", "sampled": _sampled_json(disc)}, indent=2))
+            "decided_by": "sampled", "sampled": _sampled_json(disc), **extra}, indent=2))
         return 0
     print(f"law {ctrl.law}, robot {', '.join(ctrl.joint_names)} at {', '.join(f'{q:g}' for q in q_d)} rad "
           "(linearised, Coulomb friction off)")
@@ -259,6 +317,10 @@ def _analyze_robot(args, ctrl, sim) -> int:
     for row in stiffness:
         print("    " + " ".join(f"{v:11.2f}" for v in row))
     _print_sampled(disc, ctrl.joint_names)
+    for name, imp in diagonal.items():
+        _print_impedance(imp, f"at {name} (diagonal entry q/tau_ext; the other joints move under the loop)")
+    if args.plot:
+        print(f"  wrote {args.plot}")
     return 0
 
 
@@ -390,12 +452,16 @@ def parser() -> argparse.ArgumentParser:
     c.add_argument("--json", action="store_true", help="print the problems as JSON")
     c.set_defaults(run=cmd_check_config)
     a = sub.add_parser("analyze", help="linearise law + joint at the set point, continuous and sampled "
-                       "(which decides): modes, static stiffness")
+                       "(which decides): modes, static stiffness, optionally the rendered impedance")
     _file_args(a)
     a.add_argument("--joint", help="joint to analyse (default: the first; not for a URDF robot)")
     a.add_argument("--setpoint", type=float, nargs="+", metavar="Q",
                    help="link set point, rad, one per joint for a URDF robot (default: the initial positions)")
     a.add_argument("--json", action="store_true", help="print the result as JSON")
+    a.add_argument("--impedance", action="store_true",
+                   help="also the rendered link impedance over 0.1 Hz to half the control rate: |Z|, phase, static "
+                   "stiffness, passivity of the velocity admittance (a URDF robot: each joint's diagonal entry)")
+    a.add_argument("--plot", metavar="PATH", help="with --impedance: write its Bode plot here (.png or .svg)")
     a.set_defaults(run=cmd_analyze)
     t = sub.add_parser("tune", help="sweep decoupled_damper's k_v: impact torque vs damping of the sampled loop, "
                        "recommend a stable one")

@@ -22,7 +22,7 @@ smallest damping ratio and sets the ringing. The static link stiffness is the
 inverse DC gain from a constant external link torque to the link position.
 
 Public API: :func:`linearize`, :func:`analyze`, :func:`link_admittance`,
-:func:`modes_of`, and the result classes :class:`LinearModel`, :class:`Mode`,
+:func:`static_link_stiffness`, :func:`modes_of`, and the result classes :class:`LinearModel`, :class:`Mode`,
 :class:`Analysis`.
 """
 from __future__ import annotations
@@ -40,7 +40,7 @@ from compliant_damping.dynamics import bench_plant
 from compliant_damping.dynamics.bench_plant import JointParams
 
 __all__ = ["AnalysisError", "LinearModel", "Mode", "Analysis", "linearize", "analyze",
-           "link_admittance", "modes_of", "central_jacobian"]
+           "link_admittance", "static_link_stiffness", "modes_of", "central_jacobian"]
 
 
 class AnalysisError(ValueError):
@@ -244,12 +244,12 @@ def link_admittance(lin: LinearModel, frequency_hz) -> np.ndarray:
     Its inverse is the rendered link impedance (N m/rad); at 0 Hz it is the static compliance.
     """
     w = 2.0 * math.pi * np.atleast_1d(np.asarray(frequency_hz, dtype=float))
-    eye = np.eye(len(lin.b))
-    return np.array([lin.c @ np.linalg.solve(1j * wi * eye - lin.a, lin.b) for wi in w])
+    pencil = 1j * w[:, None, None] * np.eye(len(lin.b)) - lin.a  # (F, n, n): one solve per frequency
+    return np.linalg.solve(pencil, np.broadcast_to(lin.b, (len(w), len(lin.b)))[..., None])[..., 0] @ lin.c
 
 
-def _static_stiffness(lin: LinearModel) -> float:
-    """1 / G(0) (N m/rad), 0 when a is singular (the link can drift)."""
+def static_link_stiffness(lin: LinearModel) -> float:
+    """1 / G(0) of the link admittance G (N m/rad), 0 when a is singular (the link can drift)."""
     if np.linalg.matrix_rank(lin.a) < lin.a.shape[0]:
         return 0.0
     return float(1.0 / (lin.c @ np.linalg.solve(-lin.a, lin.b)))
@@ -267,4 +267,4 @@ def analyze(plant: JointParams, law: Law, q_d: float = 0.0, *, coulomb: bool = F
     modes = modes_of(lin)
     dominant = min(modes, key=lambda m: m.decay_rate)
     least_damped = min(modes, key=lambda m: m.damping_ratio)
-    return Analysis(law.name, poles, modes, dominant, least_damped, _static_stiffness(lin), lin)
+    return Analysis(law.name, poles, modes, dominant, least_damped, static_link_stiffness(lin), lin)

@@ -1,9 +1,14 @@
-"""Plots of runs (runs.Run) and tuning sweeps, written as PNG files with matplotlib's Agg backend."""
+"""Plots of runs (runs.Run), tuning sweeps and rendered impedances, written with matplotlib's Agg backend
+(PNG; the impedance's Bode plot also as SVG)."""
 from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["plot_runs", "plot_tuning"]
+import numpy as np
+
+__all__ = ["BODE_FORMATS", "bode_format", "plot_impedance", "plot_runs", "plot_tuning"]
+
+BODE_FORMATS = ("png", "svg")
 
 
 def _pyplot():
@@ -73,5 +78,45 @@ def plot_tuning(points, best, min_zeta, limits, path) -> Path:
     bottom.legend()
     fig.tight_layout()
     fig.savefig(path, dpi=120)
+    plt.close(fig)
+    return Path(path)
+
+
+def bode_format(path) -> str:
+    """The file format of a Bode plot path, from its extension: ``png`` or ``svg``; ValueError for any other."""
+    fmt = Path(path).suffix.lower().lstrip(".")
+    if fmt not in BODE_FORMATS:
+        raise ValueError(f"plot: {str(path)!r} must end in {' or '.join('.' + f for f in BODE_FORMATS)}")
+    return fmt
+
+
+def plot_impedance(curves: dict, path, title: str) -> Path:
+    """Bode plot of rendered link impedances: |Z| (N m/rad, log-log) and phase (deg) against frequency (Hz).
+
+    curves: ``{label: impedance.RenderedImpedance}``, one line each, the static stiffness dotted; the worst
+    passivity frequency is marked with an x on the phase. path: ``.png`` or ``.svg`` (:func:`bode_format`).
+    """
+    fmt = bode_format(path)
+    plt = _pyplot()
+    fig, (ax_mag, ax_phase) = plt.subplots(2, 1, sharex=True, figsize=(7.0, 6.0))
+    for label, imp in curves.items():
+        line, = ax_mag.loglog(imp.frequency_hz, imp.magnitude, label=label)
+        if imp.static_stiffness > 0.0:
+            ax_mag.axhline(imp.static_stiffness, color=line.get_color(), ls=":", lw=0.8)
+        ax_phase.semilogx(imp.frequency_hz, imp.phase_deg, color=line.get_color(), label=label)
+        worst = imp.passivity.worst_frequency_hz
+        if not imp.passivity.passive:
+            ax_phase.plot([worst], [float(np.interp(worst, imp.frequency_hz, imp.phase_deg))], "x",
+                          color=line.get_color(), ms=9, label=f"{label}: not passive, worst {worst:.3g} Hz")
+    ax_mag.set_ylabel("|Z| = |tau_ext / q| (N m/rad)")
+    ax_phase.set_ylabel("phase of Z (deg)")
+    ax_phase.set_xlabel("frequency (Hz)")
+    for ax in (ax_mag, ax_phase):
+        ax.grid(True, which="both", alpha=0.3)
+    ax_mag.legend(loc="best", fontsize="small")
+    ax_phase.legend(loc="best", fontsize="small")
+    fig.suptitle(title)
+    fig.tight_layout()
+    fig.savefig(path, format=fmt, dpi=120)
     plt.close(fig)
     return Path(path)
