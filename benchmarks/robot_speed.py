@@ -35,7 +35,8 @@ import numpy as np
 from tick_worker import BENCH, KNEE, LEG_LOOP, TICKS, chain7, hold, leg, leg_plant, robot
 
 from compliant_damping.control.controller import stack_gains
-from compliant_damping.control.laws import ChainNominal, LawRunner, make_law
+from compliant_damping.control.law_runner import LawRunner
+from compliant_damping.control.laws import ChainNominal, make_law
 from compliant_damping.control.sample import JointSample
 from compliant_damping.sim.robot_sim import simulate_robot
 

@@ -27,7 +27,8 @@ from compliant_damping.control.controller import stack_gains  # noqa: E402
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements  # noqa: E402
 from compliant_damping.dynamics.links import IndependentLinks  # noqa: E402
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf  # noqa: E402
-from compliant_damping.control.laws import LAW_NAMES, ChainNominal, Gains, LawRunner, make_law  # noqa: E402
+from compliant_damping.control.law_runner import LawRunner  # noqa: E402
+from compliant_damping.control.laws import LAW_NAMES, ChainNominal, Gains, make_law  # noqa: E402
 from compliant_damping.control.sample import JointSample  # noqa: E402
 
 CTRL, SIM = config.load(config.bundled())

@@ -1,4 +1,4 @@
-"""Closed-form zero-order hold of the laws' internal states (laws.zoh) against scipy.
+"""Closed-form zero-order hold of the laws' internal states (law_runner.zoh) against scipy.
 
 Reference: the exact discretisation Ad = expm(A dt), bd = int_0^dt expm(A s) ds b, computed by
 scipy.linalg.expm of the augmented matrix [[A, b], [0, 0]] dt (Van Loan, 1978), for the
@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 from scipy.linalg import expm
 
-from compliant_damping.control.laws import DecoupledDamper, Gains, NominalModel, zoh
+from compliant_damping.control.law_runner import zoh
+from compliant_damping.control.laws import DecoupledDamper, Gains, NominalModel
 
 MODEL = NominalModel(link_inertia=0.25, motor_inertia=0.15, spring_stiffness=300.0)
 DAMPERS = {

@@ -1,7 +1,7 @@
 """Linear analysis of the SAMPLED closed loop: the one-period map of the code that runs (no ROS).
 
 The controller ticks every ``T = control_dt`` s: it reads the (possibly delayed) joint state,
-computes the torque with ``laws.LawRunner.step`` (output from the current law states, then the
+computes the torque with ``law_runner.LawRunner.step`` (output from the current law states, then the
 exact zero-order-hold update of those states), and the plant takes ``substeps`` RK4 steps with
 that torque held (``bench_plant.advance`` for bench joints, ``ElasticChain.advance`` for a
 chain). One period is therefore a map ``v_{k+1} = F(v_k)`` of
@@ -40,7 +40,8 @@ import numpy as np
 
 from compliant_damping.analysis import linear, robot_linear
 from compliant_damping.analysis.linear import AnalysisError, central_jacobian
-from compliant_damping.control.laws import Law, LawRunner
+from compliant_damping.control.law_runner import LawRunner
+from compliant_damping.control.laws import Law
 from compliant_damping.control.sample import JointSample, Reference
 from compliant_damping.dynamics import bench_plant
 

@@ -13,7 +13,8 @@ from dataclasses import fields
 
 import numpy as np
 
-from compliant_damping.control.laws import ChainNominal, Gains, LawRunner, NominalModel, check_gains, make_law
+from compliant_damping.control.law_runner import LawRunner
+from compliant_damping.control.laws import ChainNominal, Gains, NominalModel, check_gains, make_law
 from compliant_damping.control.safety import Fault, FaultCode, Limits, SafetyFilter, motor_accel_bound
 from compliant_damping.control.sample import JointSample, Reference
 
@@ -41,7 +42,7 @@ def blend_gains(old: Gains, new: Gains, w: float, motor_inertia) -> Gains:
 class _ScheduledLaw:
     """The law, its gains and their ramp, shared by :class:`JointController` and :class:`RobotController`.
 
-    Law switches and gain changes restart or retune the running law (laws.LawRunner) bumpless:
+    Law switches and gain changes restart or retune the running law (law_runner.LawRunner) bumpless:
     a switch restarts the states to reproduce the last command; a ramp moves the gains linearly
     in stamp time, keeping the states while their number is unchanged.
     """
