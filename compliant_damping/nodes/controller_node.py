@@ -371,6 +371,9 @@ class ControllerNode(LifecycleNode):
 
     def _refusal(self, changes) -> str | None:
         """Why ``changes`` cannot be applied, or None after applying them."""
+        robot = params.robot_changes(self, config.CONTROLLER_NODE, self._keys, changes)
+        if robot is not None:
+            return robot
         try:
             setup = params.setup(self, config.CONTROLLER_NODE, self._keys, changes)
         except config.ConfigError as err:
