@@ -274,8 +274,8 @@ class JointBank:
 
         Each joint's JointController.step takes its own reading and its entries of ``ref`` as floats.
         """
-        q, dq, ddq = (np.asarray(r, dtype=float).tolist() for r in ref)
-        return np.array([c.step(s, Reference(*r), t, dt) for c, s, r in zip(self.controllers, readings, zip(q, dq, ddq))])
+        refs = zip(*(np.asarray(r, dtype=float).tolist() for r in ref))  # per joint (q_d, q_d', q_d'')
+        return np.array([c.step(s, Reference(*r), t, dt) for c, s, r in zip(self.controllers, readings, refs)])
 
     def ramp_down(self, t: float) -> np.ndarray:
         """Commands (N m) at stamp time ``t`` without fresh readings: towards zero at each slew limit."""
