@@ -108,7 +108,7 @@ def test_limits_only_tighten_at_run_time_and_bad_changes_never_poison_later_ones
     assert not as_int.successful and "float" in as_int.reason
     lowered = _set(ctrl, knee__limits__torque=30.0, watchdog_timeout=0.04)
     assert all(r.successful for r in lowered), [r.reason for r in lowered]
-    assert ctrl.bank[0].safety.limits.torque == 30.0 and ctrl.watchdog.timeout == 0.04
+    assert ctrl.bank.filters[0].limits.torque == 30.0 and ctrl.watchdog.timeout == 0.04
 
 
 def test_a_backward_clock_jump_cannot_delay_the_watchdog(ros):

@@ -1,5 +1,5 @@
-"""Both nodes refuse a misspelt or unknown key given to them, as ``cdamp`` does; the controller
-refuses a URDF robot (not run over ROS yet), the simulated joint runs one and refuses a broken one.
+"""Both nodes refuse a misspelt or unknown key given to them, as ``cdamp`` does; both run a URDF
+robot given at start (and refuse one named at run time); the simulated joint refuses a broken one.
 
 rcl keeps every value a parameter file or ``parameter_overrides`` gives a node, declared or
 not (ROS 2 parameter rules: overrides are per node name, independent of declaration); the nodes
@@ -15,6 +15,7 @@ import pytest
 import yaml
 from rclpy.parameter import Parameter
 
+from compliant_damping.control import controller
 from compliant_damping.io import config, parameter_keys
 from compliant_damping.dynamics.bench_plant import LINK_KEYS
 from compliant_damping.nodes import params
@@ -95,29 +96,29 @@ def _robot_parameters(node: str, key: str) -> dict:
 
 
 @pytest.mark.parametrize("key", ["nominal_urdf", "robot_description"])
-def test_controller_with_a_urdf_robot_constructs_then_refuses_to_configure(ros, capfd, key):
+def test_controller_configures_a_urdf_robot(ros, key):
     ctrl = ros.start(ControllerNode, {**_robot_parameters(config.CONTROLLER_NODE, key), "use_sim_time": True})
-    assert ctrl.trigger_configure().name == "FAILURE"
-    assert ctrl.bank is None and ctrl.setup is None  # nothing was built
-    log = capfd.readouterr().err
-    assert f"cannot configure: {key}: the damping_controller node does not run URDF robots yet" in log
-    assert "offline" in log
+    assert not ctrl.has_parameter("knee.model.link_inertia")  # the URDF gives the links: drive keys only
+    assert ctrl.trigger_configure().name == "SUCCESS"
+    assert isinstance(ctrl.bank, controller.RobotController) and ctrl.bank.model.links.joint_names == ("knee",)
+    assert ctrl.setup.urdf_source is not None
 
 
 @pytest.mark.parametrize("key", ["robot_urdf", "robot_description"])
 def test_simulated_joint_runs_a_urdf_robot(ros, key):
-    """The controller's refusal above is the controller's only: the simulated joint runs the pendulum URDF."""
+    """The simulated joint runs the pendulum URDF as the controller does."""
     sim = ros.start(SimulatedJointNode, {**_robot_parameters(config.SIM_NODE, key), "lock_step": True})
     assert sim.setup.links.joint_names == ("knee",) and sim.setup.urdf_source is not None
     assert not sim.has_parameter("knee.link_inertia")  # the URDF gives the links: drive keys only
 
 
 def test_naming_a_urdf_at_run_time_is_refused(ros):
-    """An unconfigured controller validates every change (ROS 2 set-parameters callback): a URDF is refused."""
+    """An unconfigured controller validates every change (ROS 2 set-parameters callback): the robot
+    decided its keys at start, so a URDF is refused."""
     ctrl = ros.controller()
     result = ctrl.set_parameters([Parameter("nominal_urdf", value=PENDULUM_URI)])[0]
     assert not result.successful
-    assert result.reason.startswith("nominal_urdf: the damping_controller node does not run URDF robots yet")
+    assert result.reason.startswith("nominal_urdf: fixed after start")
     assert ctrl.get_parameter("nominal_urdf").value == ""
     assert ctrl.trigger_configure().name == "SUCCESS"  # still the built-in knee
 

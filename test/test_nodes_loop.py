@@ -114,7 +114,7 @@ def test_rejected_parameter_changes_keep_old_values(ros):
         assert ctrl.get_parameter(key).value == old and ctrl.setup is old_setup
     # an accepted change reaches the running controller
     assert ctrl.set_parameters([Parameter("knee.limits.torque", value=30.0)])[0].successful
-    assert ctrl.bank[0].safety.limits.torque == 30.0
+    assert ctrl.bank.filters[0].limits.torque == 30.0
 
 
 def test_parameters_are_described_with_unit_and_meaning(ros):

@@ -1,7 +1,9 @@
 """The controllers: the chosen law, then the safety filter. Nothing else sends torque.
 
 JointController runs one joint on its own (the built-in bench joints); RobotController runs
-every joint of a robot with coupled links at once, a safety filter per joint.
+every joint of a robot with coupled links at once, a safety filter per joint. JointBank holds
+the bench's JointControllers behind RobotController's robot-wide interface, so a caller (the
+ROS controller node) drives either through one API: :func:`build` picks the one a setup needs.
 
 Used tick by tick by the offline simulator and the ROS controller node alike. Times are the
 stamp times of the readings (s): the safety filter makes them monotonic for the slew limit.
@@ -9,7 +11,7 @@ stamp times of the readings (s): the safety filter makes them monotonic for the 
 from __future__ import annotations
 
 import math
-from dataclasses import fields
+from dataclasses import dataclass, fields
 
 import numpy as np
 
@@ -18,7 +20,25 @@ from compliant_damping.control.laws import ChainNominal, Gains, NominalModel, ch
 from compliant_damping.control.safety import Fault, FaultCode, Limits, SafetyFilter, motor_accel_bound
 from compliant_damping.control.sample import JointSample, Reference
 
-__all__ = ["JointController", "RobotController", "bank", "blend_gains", "chain_nominal", "robot", "stack_gains"]
+__all__ = ["JointBank", "JointController", "JointFault", "RobotController", "bank", "blend_gains", "build",
+           "chain_nominal", "joint_bank", "robot", "stack_gains"]
+
+
+@dataclass(frozen=True)
+class JointFault:
+    """A joint's fault: the joint's name and what holds it in safe mode."""
+
+    joint: str
+    fault: Fault
+
+    def __str__(self) -> str:
+        return f"{self.joint}: {self.fault}"
+
+
+def _newest(times) -> float | None:
+    """Newest of the stamp times ``times`` (s) that are set, or None."""
+    times = [t for t in times if t is not None]
+    return max(times) if times else None
 
 
 def blend_gains(old: Gains, new: Gains, w: float, motor_inertia) -> Gains:
@@ -184,6 +204,12 @@ class JointController(_ScheduledLaw):
             self._runner = None
         return fault
 
+    def restart_law(self) -> None:
+        """Out of fault: restart the law from the measured state, bumpless from the last command
+        (on activation), when the last reading is within limits. A fault stays until :meth:`reset`."""
+        if self.safety.fault is None:
+            self.reset()
+
     def set_limits(self, limits: Limits) -> None:
         """New safety limits from the next tick (a lowered torque limit applies at once)."""
         self.safety.limits = limits
@@ -195,6 +221,108 @@ def bank(setup) -> list:
     sensor = setup.spring_torque_source == "effort"
     return [JointController(setup.law, j.model, j.gains, j.limits, setup.safe_mode, sensor, 1.0 / setup.control_rate)
             for j in setup.joints]
+
+
+class JointBank:
+    """Independent joints (the built-in bench), one :class:`JointController` each, driven with
+    :class:`RobotController`'s robot-wide interface.
+
+    Every joint keeps its own law states, faults and resets, exactly as when stepped one by one
+    (offline, simulate.simulate steps the same controllers): a fault on one joint leaves the
+    others running. Indexing and iteration give the JointControllers in joint order.
+
+    Parameters
+    ----------
+    controllers : sequence of JointController
+        Per joint, all on the same law.
+    joint_names : sequence of str
+        For the faults a reset leaves.
+    """
+
+    def __init__(self, controllers, joint_names):
+        self.controllers, self.joint_names = list(controllers), list(joint_names)
+
+    def __len__(self) -> int:
+        return len(self.controllers)
+
+    def __getitem__(self, j: int) -> JointController:
+        return self.controllers[j]
+
+    def __iter__(self):
+        return iter(self.controllers)
+
+    @property
+    def law_name(self) -> str:
+        return self.controllers[0].law_name
+
+    @property
+    def filters(self) -> list:
+        """Safety filter per joint (safety.SafetyFilter)."""
+        return [c.safety for c in self.controllers]
+
+    @property
+    def faults(self) -> list:
+        """Fault per joint (None where none)."""
+        return [c.fault for c in self.controllers]
+
+    @property
+    def last_command_time(self) -> float | None:
+        """Stamp time (s) of the newest command sent, None before the first."""
+        return _newest(c.last_command_time for c in self.controllers)
+
+    def step(self, readings, ref, t: float, dt: float) -> np.ndarray:
+        """Motor torques (N m) for the per-joint readings at stamp time ``t``; ``ref`` = (q_d, q_d', q_d'') arrays.
+
+        Each joint's JointController.step takes its own reading and its entries of ``ref`` as floats.
+        """
+        refs = zip(*(np.asarray(r, dtype=float).tolist() for r in ref))  # per joint (q_d, q_d', q_d'')
+        return np.array([c.step(s, Reference(*r), t, dt) for c, s, r in zip(self.controllers, readings, refs)])
+
+    def ramp_down(self, t: float) -> np.ndarray:
+        """Commands (N m) at stamp time ``t`` without fresh readings: towards zero at each slew limit."""
+        return np.array([c.ramp_down(t) for c in self.controllers])
+
+    def trip(self, fault: Fault) -> None:
+        """Every joint to safe mode with ``fault``."""
+        for c in self.controllers:
+            c.trip(fault)
+
+    def stop(self, reason: str = "stop requested") -> None:
+        """Every joint to safe mode now on request."""
+        for c in self.controllers:
+            c.stop(reason)
+
+    def reset(self) -> list:
+        """Clear each joint's fault where its last reading is within limits; returns the JointFaults that stay."""
+        staying = [(name, c.reset()) for name, c in zip(self.joint_names, self.controllers)]
+        return [JointFault(name, fault) for name, fault in staying if fault is not None]
+
+    def restart_law(self) -> None:
+        """JointController.restart_law on every joint."""
+        for c in self.controllers:
+            c.restart_law()
+
+    def switch_law(self, law: str, gains=None) -> None:
+        """Change law (and per-joint gains, joint order) at once, bumpless for every joint."""
+        for j, c in enumerate(self.controllers):
+            c.switch_law(law, None if gains is None else gains[j])
+
+    def set_gains(self, gains, t: float, ramp_time: float) -> None:
+        """Move each joint whose gains change (sequence, joint order) to them over ``ramp_time`` s from ``t``;
+        a joint whose target stays the same keeps its law (and any ramp under way) untouched."""
+        for c, g in zip(self.controllers, gains):
+            if g != c.gains:
+                c.set_gains(g, t, ramp_time)
+
+    def set_limits(self, limits) -> None:
+        """New per-joint safety limits from the next tick (a lowered torque limit applies at once)."""
+        for c, lim in zip(self.controllers, limits):
+            c.set_limits(lim)
+
+
+def joint_bank(setup) -> JointBank:
+    """The JointBank of a :class:`config.ControllerSetup` of built-in joints (the controllers of :func:`bank`)."""
+    return JointBank(bank(setup), setup.joint_names)
 
 
 class RobotController(_ScheduledLaw):
@@ -246,6 +374,11 @@ class RobotController(_ScheduledLaw):
         """Fault per joint (None where none)."""
         return [f.fault for f in self.filters]
 
+    @property
+    def last_command_time(self) -> float | None:
+        """Stamp time (s) of the newest command sent, None before the first."""
+        return _newest(f.last_time for f in self.filters)
+
     def _last_command(self) -> np.ndarray:
         return np.array([f.last_torque for f in self.filters])
 
@@ -291,13 +424,20 @@ class RobotController(_ScheduledLaw):
         self.trip(Fault(FaultCode.STOP_REQUESTED, reason))
 
     def reset(self) -> list:
-        """Clear the faults if every joint's last reading is within limits; returns the faults that stay."""
-        staying = [b for b in (f.blocking() for f in self.filters) if b is not None]
+        """Clear the faults if every joint's last reading is within limits; returns the JointFaults that stay."""
+        staying = [JointFault(name, b) for name, b in zip(self.joint_names, (f.blocking() for f in self.filters))
+                   if b is not None]
         if not staying:
             for f in self.filters:
                 f.reset()
             self._runner = None
         return staying
+
+    def restart_law(self) -> None:
+        """Out of fault: restart the law from the measured state, bumpless from the last commands
+        (on activation), when every last reading is within limits. A fault stays until :meth:`reset`."""
+        if all(f.fault is None for f in self.filters):
+            self.reset()
 
     def switch_law(self, law: str, gains=None) -> None:
         """Change law (and per-joint gains) at once, bumpless for every joint."""
@@ -331,3 +471,9 @@ def robot(setup) -> RobotController:
     return RobotController(setup.law, chain_nominal(setup), [j.gains for j in setup.joints],
                            [j.limits for j in setup.joints], setup.joint_names, setup.safe_mode,
                            setup.spring_torque_source == "effort", 1.0 / setup.control_rate)
+
+
+def build(setup) -> JointBank | RobotController:
+    """The controller of a :class:`config.ControllerSetup` behind the robot-wide interface: a
+    RobotController for a URDF robot (``setup.urdf_source`` set), else the built-in joints' JointBank."""
+    return joint_bank(setup) if setup.urdf_source is None else robot(setup)

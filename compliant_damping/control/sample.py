@@ -4,7 +4,9 @@ from __future__ import annotations
 import math
 from typing import NamedTuple
 
-__all__ = ["JointSample", "Reference"]
+import numpy as np
+
+__all__ = ["JointSample", "Reference", "stack_references"]
 
 
 class JointSample(NamedTuple):
@@ -37,3 +39,8 @@ class Reference(NamedTuple):
     q: float
     dq: float = 0.0
     ddq: float = 0.0
+
+
+def stack_references(refs) -> Reference:
+    """One Reference of arrays (joint order) from the per-joint References ``refs``."""
+    return Reference(*(np.array(column, dtype=float) for column in zip(*refs)))

@@ -1,4 +1,5 @@
-"""``damping_controller``: managed (lifecycle) node around one controller.JointController per joint.
+"""``damping_controller``: managed (lifecycle) node around one controller (controller.build): the
+built-in joints' controller.JointBank, or a controller.RobotController for a URDF robot.
 
 Topics (relative names):
 
@@ -20,7 +21,9 @@ Topics (relative names):
   stamp of the joint state answered; reliable, keep last 1000 so a slow recorder loses nothing),
   ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output),
   ``/diagnostics`` (2 Hz of steady time, so they go on when a sim clock stops; one status per
-  joint: mode, fault code and reason, counters).
+  joint: mode, fault code and reason, counters). On a URDF robot a fault on one joint puts every
+  joint in safe mode: that joint's status gives its own code and reason, the others
+  ``other_joint`` with a reason naming it.
 
 Services (std_srvs/Trigger): ``~/stop`` (safe mode now), ``~/reset_fault`` (refuses with the
 reason: not active, no fresh joint state, or the fault that stays).
@@ -46,8 +49,9 @@ Parameters: parameter_keys.parameter_specs. At run time ``law``, ``<joint>.gains
 config.controller_setup; gains ramp in over gain_ramp_time, a law switch is bumpless); the rest
 changes only while unconfigured. Limits and the watchdog timeout only tighten at run time:
 raising one needs an unconfigured node. Deletes are refused. ``lock_gains: true`` refuses law
-and gain changes. URDF robots are not run yet: ``nominal_urdf`` or ``robot_description`` set
-fails the configure transition, naming the key (params.setup).
+and gain changes. A URDF robot comes from ``robot_description`` (the URDF string, the ROS
+convention) or ``nominal_urdf`` (a file); the URDF gives the links, the per-joint keys the drive,
+gains and limits.
 """
 from __future__ import annotations
 
@@ -71,7 +75,7 @@ from std_msgs.msg import Float64MultiArray
 from std_srvs.srv import Trigger
 
 from compliant_damping.control import controller, safety
-from compliant_damping.control.sample import Reference
+from compliant_damping.control.sample import Reference, stack_references
 from compliant_damping.control.watchdog import ClockStall, Watchdog, stall_timeout
 from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
@@ -110,7 +114,7 @@ class ControllerNode(LifecycleNode):
         except config.ConfigError as err:
             self.get_logger().error(f"cannot configure: {err}")
             return TransitionCallbackReturn.FAILURE
-        self.bank = controller.bank(s)
+        self.bank = controller.build(s)
         self.decoder = codec.StateDecoder(s.joints, s.spring_torque_source == "effort")
         self.ticks = codec.TickClock(1.0 / s.control_rate)
         self.refs = codec.ReferenceSchedule(s.joint_names, [j.limits for j in s.joints])
@@ -124,7 +128,7 @@ class ControllerNode(LifecycleNode):
         self._last_rejection_time = -math.inf
         self._last_rejection = None
         self._sequence = None
-        self._logged = [None] * len(self.bank)
+        self._logged = [None] * len(s.joints)
         self._last_command = None
         self._pub = self.create_publisher(JointState, "motor_effort", 1000)
         self._pub_array = (self.create_publisher(Float64MultiArray, "motor_effort_array", 10)
@@ -148,11 +152,9 @@ class ControllerNode(LifecycleNode):
         if others > 0:
             self.get_logger().error(f"activation refused: {others} other publisher(s) on {self._pub.topic_name}")
             return TransitionCallbackReturn.FAILURE
-        for c in self.bank:
-            if c.fault is None:
-                c.reset()  # the law restarts from the measured state, bumpless from the last command
+        self.bank.restart_law()  # out of fault: from the measured state, bumpless from the last command
         self.ticks = codec.TickClock(self.ticks.period)
-        self._hold = [None] * len(self.bank)
+        self._hold = [None] * len(self.setup.joints)
         self.watchdog.disarm()  # armed by the first joint state
         self.stall.reset()
         self._activated_at, self._waiting_reported = self._steady_now(), False
@@ -185,7 +187,7 @@ class ControllerNode(LifecycleNode):
         t = self._newest_command_time()
         for _ in range(math.ceil(safety.MAX_RAMP_DOWN / period) + 1):
             t += period
-            taus = [c.ramp_down(t) for c in self.bank]
+            taus = self.bank.ramp_down(t)
             self._publish(taus, self._stamp_of(t))
             if not any(taus):
                 break
@@ -222,9 +224,8 @@ class ControllerNode(LifecycleNode):
             return
         self.stamps.accept(t)
         dt = self.ticks.interval(t)
-        refs = self.refs.at(t)
-        taus = [c.step(s, self._reference(j, s, refs[j]), t, dt)
-                for j, (c, s) in enumerate(zip(self.bank, samples))]
+        refs = [self._reference(j, s, r) for j, (s, r) in enumerate(zip(samples, self.refs.at(t)))]
+        taus = self.bank.step(samples, stack_references(refs), t, dt)
         self._publish(taus, msg.header.stamp if stamp else self._stamp_of(t))
         self.watchdog.fresh(self._watch_now())
         self._feed_watchdog(self.setup.watchdog_timeout)
@@ -276,10 +277,9 @@ class ControllerNode(LifecycleNode):
         """Trip every joint and step the torque down when the watchdog has expired."""
         fault = self.watchdog.expired(self._watch_now())
         if fault is not None:
-            for c in self.bank:
-                c.trip(fault)
+            self.bank.trip(fault)
             t = max(self._now(), self._newest_command_time() + self.ticks.period)
-            self._publish([c.ramp_down(t) for c in self.bank], self._stamp_of(t))
+            self._publish(self.bank.ramp_down(t), self._stamp_of(t))
             self._log_faults()
 
     def _on_supervise(self):
@@ -300,15 +300,15 @@ class ControllerNode(LifecycleNode):
             fault = safety.Fault(safety.FaultCode.COMMAND_CONFLICT,
                                  f"{others} other publisher(s) on {self._pub.topic_name}")
         if fault is not None:
-            for c in self.bank:
-                c.trip(fault)
+            self.bank.trip(fault)
         self._log_faults()
 
     def _log_faults(self):
-        for j, c in enumerate(self.bank):
-            if c.fault is not None and c.fault is not self._logged[j]:
-                self.get_logger().error(f"{self.setup.joints[j].name}: safe mode ({self.setup.safe_mode}): {c.fault}")
-            self._logged[j] = c.fault
+        faults = self.bank.faults
+        for name, fault, logged in zip(self.setup.joint_names, faults, self._logged):
+            if fault is not None and fault is not logged:
+                self.get_logger().error(f"{name}: safe mode ({self.setup.safe_mode}): {fault}")
+        self._logged = faults
 
     def _feed_watchdog(self, period: float):
         """Restart the watchdog timer with ``period`` (s): idle between joint states, no polling."""
@@ -323,10 +323,11 @@ class ControllerNode(LifecycleNode):
         rate = self.ticks.rate()
         msg = DiagnosticArray()
         msg.header.stamp = self.get_clock().now().to_msg()
-        for j, c in zip(self.setup.joints, self.bank):
+        law = self.bank.law_name
+        for j, fault in zip(self.setup.joints, self.bank.faults):
             rejection = self._last_rejection
-            values = {"law": c.law_name, "mode": "safe" if c.fault else mode,
-                      "fault_code": c.fault.code.value if c.fault else "", "fault": c.fault.reason if c.fault else "",
+            values = {"law": law, "mode": "safe" if fault else mode,
+                      "fault_code": fault.code.value if fault else "", "fault": fault.reason if fault else "",
                       "tick_rate_hz": f"{rate:.1f}", "late_ticks": str(self.ticks.late),
                       "rejected_messages": str(self.decoder.rejected + self.stamp_rejected),
                       "dropped_messages": str(self.dropped),
@@ -334,44 +335,45 @@ class ControllerNode(LifecycleNode):
                       "reference_rejected": str(self.refs.rejected), "reference_clipped": str(self.refs.clipped),
                       "last_reference_issue": self.refs.last_issue.reason if self.refs.last_issue else ""}
             msg.status.append(DiagnosticStatus(
-                level=DiagnosticStatus.ERROR if c.fault else DiagnosticStatus.WARN if waiting else DiagnosticStatus.OK,
+                level=DiagnosticStatus.ERROR if fault else DiagnosticStatus.WARN if waiting else DiagnosticStatus.OK,
                 name=f"{self.get_name()}: {j.name}", hardware_id=j.name,
-                message=str(c.fault) if c.fault else f"{mode}, law {c.law_name}",
+                message=str(fault) if fault else f"{mode}, law {law}",
                 values=[KeyValue(key=k, value=v) for k, v in values.items()]))
         self._pub_diag.publish(msg)
 
     def _on_stop(self, request, response):
-        for c in self.bank:
-            c.stop("stop requested (~/stop)")
+        self.bank.stop("stop requested (~/stop)")
         self._log_faults()
         response.success, response.message = True, "safe mode"
         return response
 
     def _on_reset(self, request, response):
-        reasons = ["not active"] if not self.active else [
-            f"{j.name}: {r}" for j, r in zip(self.setup.joints, map(self._reset_one, self.bank)) if r]
-        if self.active and len(reasons) < len(self.bank):
-            self.refs.clear()  # a reset law holds the measured position, never an old reference
-            self._hold = [None] * len(self.bank)
+        if not self.active:
+            reasons = ["not active"]
+        elif not self.watchdog.armed or self._watch_now() - self.watchdog.last_new > self.setup.watchdog_timeout:
+            reasons = [f"{name}: no fresh joint state" for name in self.setup.joint_names]
+        else:
+            reasons = [str(staying) for staying in self.bank.reset()]
+            if any(fault is None for fault in self.bank.faults):
+                self.refs.clear()  # a reset law holds the measured position, never an old reference
+                self._hold = [None] * len(self.setup.joints)
         response.success = not reasons
         response.message = "; ".join(reasons) or "fault cleared"
         if reasons:
             self.get_logger().warning(f"reset refused: {response.message}")
         else:
             self.get_logger().info("fault cleared; the law restarts holding the measured position")
-        self._logged = [c.fault for c in self.bank]
+        self._logged = self.bank.faults
         return response
-
-    def _reset_one(self, c):
-        if not self.watchdog.armed or self._watch_now() - self.watchdog.last_new > self.setup.watchdog_timeout:
-            return "no fresh joint state"
-        return c.reset()
 
     def _on_set_parameters(self, changes):
         return params.answer(self, config.CONTROLLER_NODE, changes, self._refusal)
 
     def _refusal(self, changes) -> str | None:
         """Why ``changes`` cannot be applied, or None after applying them."""
+        robot = params.robot_changes(self, config.CONTROLLER_NODE, self._keys, changes)
+        if robot is not None:
+            return robot
         try:
             setup = params.setup(self, config.CONTROLLER_NODE, self._keys, changes)
         except config.ConfigError as err:
@@ -395,15 +397,14 @@ class ControllerNode(LifecycleNode):
         return None
 
     def _apply(self, setup):
-        now = self._now()
-        for c, old, j in zip(self.bank, self.setup.joints, setup.joints):
-            if setup.law != self.setup.law:
-                c.switch_law(setup.law, j.gains)
-            elif j.gains != old.gains:
-                c.set_gains(j.gains, now, setup.gain_ramp_time)
-            if j.limits != old.limits:
-                c.set_limits(j.limits)
-        self.refs.limits = [j.limits for j in setup.joints]
+        gains, limits = [j.gains for j in setup.joints], [j.limits for j in setup.joints]
+        if setup.law != self.setup.law:
+            self.bank.switch_law(setup.law, gains)
+        elif gains != [j.gains for j in self.setup.joints]:
+            self.bank.set_gains(gains, self._now(), setup.gain_ramp_time)
+        if limits != [j.limits for j in self.setup.joints]:
+            self.bank.set_limits(limits)
+        self.refs.limits = limits
         self.watchdog.timeout = self.stamps.ahead_tolerance = setup.watchdog_timeout
         self.stall.timeout = stall_timeout(setup.watchdog_timeout)
         self.setup = setup
@@ -436,8 +437,8 @@ class ControllerNode(LifecycleNode):
 
     def _newest_command_time(self) -> float:
         """Stamp time (s) of the newest command, or the node clock before the first."""
-        times = [c.last_command_time for c in self.bank if c.last_command_time is not None]
-        return max(times) if times else self._now()
+        t = self.bank.last_command_time
+        return self._now() if t is None else t
 
     def _publish(self, taus, stamp):
         msg = JointState(name=[j.command for j in self.setup.joints], effort=[float(t) for t in taus])

@@ -8,11 +8,11 @@ The nodes are therefore built with :data:`NODE_OPTIONS` (rclpy declares every gi
 construction), :func:`declare` re-declares the known keys with their descriptions and leaves the
 others in the key list, so config refuses them by name with a did-you-mean.
 
-Both nodes build their setups with :func:`setup`, at start-up and for every run-time change. The
-simulated joint runs the built-in joints or a URDF robot (the robot section, io/robot_section.py);
-the controller runs the built-in joints only for now: a controller parameter set that names a URDF
-is refused there, naming its key. A node given a URDF declares the drive's per-joint keys only
-(parameter_keys.parameter_specs with ``robot``), so a link key is refused as the URDF's.
+Both nodes build their setups with :func:`setup`, at start-up and for every run-time change. Both
+run the built-in joints or a URDF robot (the robot section, io/robot_section.py: a URDF file key
+or ``robot_description``). A node given a URDF declares the drive's per-joint keys only
+(parameter_keys.parameter_specs with ``robot``), so a link key is refused as the URDF's; which
+robot it runs is therefore fixed when the node starts (:func:`robot_changes`).
 """
 from __future__ import annotations
 
@@ -94,17 +94,21 @@ def setup(node, node_name: str, keys, changes=()):
     Raises
     ------
     config.ConfigError
-        Any problem config finds (for a URDF robot of the simulated joint: a URDF that does not
-        parse or lacks a joint, naming the key that gives it); for the controller before those,
-        a URDF robot (robot_section.describes_robot), naming the key: it does not run URDF robots yet.
+        Any problem config finds (for a URDF robot: a URDF that does not parse or lacks a joint,
+        naming the key that gives it).
     """
-    flat = values(node, keys, changes)
-    if node_name == config.CONTROLLER_NODE and describes_robot(flat, node_name):
-        key = next(k for k in URDF_KEYS[node_name] if flat.get(k))
-        raise config.ConfigError(key, f"the {node_name} node does not run URDF robots yet (they run offline for "
-                                      "now: cdamp simulate, cdamp analyze); leave "
-                                      f"{' and '.join(URDF_KEYS[node_name])} empty for the built-in joints")
-    return _SETUPS[node_name](flat)
+    return _SETUPS[node_name](values(node, keys, changes))
+
+
+def robot_changes(node, node_name: str, keys, changes) -> str | None:
+    """Reason to refuse a run-time change of ``node_name``'s URDF keys (robot_section.URDF_KEYS), or None.
+
+    The robot decides which per-joint keys the node declared at start (:func:`declare`), so it
+    cannot change while the node runs, configured or not.
+    """
+    urdf = sorted(set(changed(node, keys, changes)) & set(URDF_KEYS[node_name]))
+    return (f"{urdf[0]}: fixed after start (the robot decides the node's parameters); start the node with "
+            "the robot to run" if urdf else None)
 
 
 def _get(node, key):

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from compliant_damping.control.sample import JointSample, Reference
+from compliant_damping.control.sample import JointSample, stack_references
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements
 from compliant_damping.io.runs import Run
 from compliant_damping.sim.sensors import SensorChannel
@@ -83,7 +83,7 @@ def simulate_robot(plant, controller, scenario, duration: float | None = None, c
         tau_s = plant.spring_torque(x)
         rows = [(*row, torque) for row, torque in zip(x.tolist(), tau_s.tolist())]  # Python floats per joint
         readings = [JointSample(*r) for r in rows] if reads is None else [read(*r) for read, r in zip(reads, rows)]
-        ref = Reference(*(np.array(column) for column in zip(*(r.sample(t) for r in scenario.references))))
+        ref = stack_references([r.sample(t) for r in scenario.references])
         tau = controller.step(readings, ref, t, control_dt)
         tau_m[i] = plant.advance(x, tau, external, t, h, substeps)
         tau_s_out[i] = tau_s
