@@ -11,7 +11,8 @@ import pytest
 
 from compliant_damping.io import config
 from compliant_damping.sim import scenarios, simulate
-from compliant_damping.control.controller import JointController, blend_gains
+from compliant_damping.control.controller import JointController
+from compliant_damping.control.scheduled_law import blend_gains
 from compliant_damping.control.laws import Gains, LinkDamping, NominalModel
 from compliant_damping.control.safety import Limits
 from compliant_damping.control.sample import JointSample
