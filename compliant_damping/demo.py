@@ -31,6 +31,7 @@ from compliant_damping.sim import scenarios, simulate
 
 DEMO_LAWS = ("motor_pd", "link_damping", "decoupled_damper")
 SCENARIO = "end_stop_impact"
+MAX_DIFFERENCE = 1e-9  # rad: ROS in lock step against the offline simulator (measured about 2e-15)
 LOOPBACK_ENV = {"ROS_AUTOMATIC_DISCOVERY_RANGE": "LOCALHOST", "ROS_LOCALHOST_ONLY": "1"}
 
 
@@ -152,11 +153,15 @@ def run(params_file=None, out="results/demo", laws=DEMO_LAWS, timeout: float = 6
         if ros.q.shape != offline.q.shape or not np.array_equal(ros.t_cmd, ros.t):
             raise DemoError(f"{law}: {len(ros.t)} states and {len(ros.t_cmd)} commands recorded over ROS, "
                             f"{len(offline.t)} ticks offline; see {out}/{law}.*.log")
+        difference = float(np.max(np.abs(ros.q - offline.q)))
+        if not difference <= MAX_DIFFERENCE:
+            raise DemoError(f"{law}: the run over ROS left the offline simulator's trajectory by {difference:.3g} rad "
+                            f"(lock step should agree to round-off); see {out}/{law}.*.log")
         ros_results[law] = ros
         summary["laws"][law] = {
             "ros": to_dicts(joint_metrics(ros, scenario)),
             "offline": to_dicts(joint_metrics(offline, scenario)),
-            "max_link_position_difference": float(np.max(np.abs(ros.q - offline.q))),
+            "max_link_position_difference": difference,
             "max_torque_difference": float(np.max(np.abs(ros.tau_m - offline.tau_m))),
             "offline_faults": [None if f is None else f.to_dict() for f in offline.faults],
         }

@@ -108,6 +108,14 @@ class Plant:
         self._sensors = [SensorChannel(j.sensor, self.period, rng) for j in setup.joints]
         self._joints = setup.joints
         self.readings = self._read()
+        self._warm_up()
+
+    def _warm_up(self) -> None:
+        """One substep on a copy of the state, so numba compiles (or loads from its cache) the
+        kernels now: on a fresh install the first period would otherwise stall for seconds, long
+        enough for a controller on sim time to see the clock stopped (clock_stopped fault)."""
+        self._dynamics.advance(self.x.copy(), np.zeros(len(self.x)), self.external, 0.0,
+                               self.period / self.substeps, 1)
 
     @property
     def t(self) -> float:
