@@ -1,6 +1,6 @@
 """Per-tick cost of the decoupled damper with fixed against jittery tick lengths, side by side.
 
-The damper states advance by an exact zero-order hold (law_runner.zoh, closed form). With a matrix
+The damper states advance by an exact zero-order hold (law_runner.zoh_integral, closed form). With a matrix
 exponential per new tick length, jittery stamps cost 148 us per step against 11.8 us on a fixed
 tick; the closed form keeps a jittery tick cheap. A fixed tick reuses the discretisation it holds
 (LawRunner keeps it while the tick length and gains stay), so the ratio jittery / fixed is what one
@@ -19,14 +19,14 @@ import numpy as np
 
 from compliant_damping.control.law_runner import LawRunner
 from compliant_damping.control.laws import make_law
-from compliant_damping.control.sample import JointSample
+from compliant_damping.control.sample import JointSample, Reference
 from compliant_damping.io import config
 
 TICKS, ROUNDS = 20000, 5
 
 
 def per_tick(runner: LawRunner, dts) -> float:
-    s, ref = JointSample(0.01, 0.1, 0.02, 0.2), (0.0, 0.0, 0.0)
+    s, ref = JointSample(0.01, 0.1, 0.02, 0.2), Reference(0.0)
     start = time.perf_counter()
     for dt in dts:
         runner.step(s, ref, dt)

@@ -29,7 +29,7 @@ from compliant_damping.dynamics.links import IndependentLinks  # noqa: E402
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf  # noqa: E402
 from compliant_damping.control.law_runner import LawRunner  # noqa: E402
 from compliant_damping.control.laws import LAW_NAMES, ChainNominal, Gains, make_law  # noqa: E402
-from compliant_damping.control.sample import JointSample  # noqa: E402
+from compliant_damping.control.sample import JointSample, Reference  # noqa: E402
 
 CTRL, SIM = config.load(config.bundled())
 KNEE = CTRL.joints[0]
@@ -44,8 +44,8 @@ def _vector(s: JointSample) -> JointSample:
     return JointSample(*(np.array([v]) for v in s))
 
 
-def _vref(ref) -> tuple:
-    return tuple(np.array([r]) for r in ref)
+def _vref(ref) -> Reference:
+    return Reference(*(np.array([r]) for r in ref))
 
 
 @pytest.mark.parametrize("law", LAW_NAMES)
@@ -61,11 +61,11 @@ def test_one_joint_chain_gives_the_bench_torques(law, links):
     vector = make_law(law, _chain_nominal(chain), stack_gains([gains]))
     for _ in range(20):
         s = JointSample(*RNG.uniform(-0.5, 0.5, 4))
-        ref = tuple(RNG.uniform(-0.3, 0.3, 3))
+        ref = Reference(*RNG.uniform(-0.3, 0.3, 5))
         z = tuple(RNG.uniform(-0.5, 0.5, bench.n_states))
         out = vector.output(_vector(s), _vref(ref), tuple(np.array([v]) for v in z))
         assert out[0] == pytest.approx(bench.output(s, ref, z), rel=1e-10, abs=1e-10)
-    ref0 = (0.05, 0.0, 0.0)
+    ref0 = Reference(0.05)
     s = JointSample(0.1, 0.2, 0.12, -0.1)
     a = LawRunner(bench, s, ref0, previous_torque=1.5)
     b = LawRunner(vector, _vector(s), _vref(ref0), previous_torque=np.array([1.5]))
@@ -91,7 +91,7 @@ def test_coupled_arm_follows_the_target_closed_loop(law):
     plant = ElasticChain(links, elements)
     control = make_law(law, nominal, gains)
     q_d = np.array([0.4, -0.3])
-    ref = (q_d, np.zeros(2), np.zeros(2))
+    ref = Reference(q_d, np.zeros(2), np.zeros(2))
     q0, dq0 = np.array([0.1, 0.2]), np.array([0.5, -0.4])
     theta0 = q0 + links.gravity(q0) / elements.spring_stiffness + np.array([0.01, -0.02])
     x0 = np.stack([q0, dq0, theta0, np.array([0.3, 0.1])], axis=1)

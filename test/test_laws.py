@@ -16,7 +16,7 @@ from compliant_damping.sim import scenarios, simulate
 from compliant_damping.control.controller import JointController, bank
 from compliant_damping.control.laws import NominalModel, make_law
 from compliant_damping.control.references import Constant
-from compliant_damping.control.sample import JointSample
+from compliant_damping.control.sample import JointSample, Reference
 from compliant_damping.control.safety import FaultCode, Limits
 from compliant_damping.sim.scenarios import Scenario
 
@@ -188,7 +188,7 @@ def test_torque_sensor_without_a_reading_trips_the_safety_filter():
     reading before the law runs and the command stays zero; the bundled file's
     ``spring_torque_source`` selects the reading."""
     ctrl = JointController("link_damping", JOINT.model, GAINS, WIDE, torque_sensor=True)
-    assert ctrl.step(JointSample(0.0, 0.0, 0.0, 0.0), (0.0, 0.0, 0.0), 0.0, 1e-3) == 0.0
+    assert ctrl.step(JointSample(0.0, 0.0, 0.0, 0.0), Reference(0.0), 0.0, 1e-3) == 0.0
     assert ctrl.fault.code is FaultCode.NON_FINITE_READING
     params = config.node_parameters(config.read(config.bundled()), config.CONTROLLER_NODE)
     setup = config.controller_setup({**params, "spring_torque_source": "effort"})

@@ -17,7 +17,7 @@ from rosbags.typesys import Stores, get_typestore
 
 from compliant_damping import cli
 from compliant_damping.io import recordings
-from compliant_damping.io.metrics import STEP_FIELDS, JointMetrics, joint_metrics
+from compliant_damping.io.metrics import STEP_FIELDS, TRACKING_FIELDS, JointMetrics, joint_metrics
 
 STORE = get_typestore(Stores.ROS2_KILTED)
 JOINT_STATE = STORE.types["sensor_msgs/msg/JointState"]
@@ -117,7 +117,7 @@ def test_csv_round_trip_matches_simulate_metrics(tmp_path):
                          capture_output=True, text=True, check=True)
     expected = json.loads(out.stdout)["joints"]["knee"]
     got = joint_metrics(recordings.read(csv_path))["knee"].to_dict(step=False)
-    assert set(got) == set(expected) - set(STEP_FIELDS) - {"fault"}
+    assert set(got) == set(expected) - set(STEP_FIELDS) - set(TRACKING_FIELDS) - {"fault"}
     for key, value in got.items():
         assert value == pytest.approx(expected[key], rel=1e-6, abs=1e-12), key
     assert got["peak_torque_rate"] > 0.0 and got["max_deflection"] > 0.0
@@ -200,5 +200,6 @@ def test_run_and_metrics_types_check_themselves():
         Run("test", ("knee",), t, col, col, col, col, col, t, col, ("joint limit",))
     m = JointMetrics(1.0, 2.0, 3.0, 4.0, 5.0, 6.0)
     assert list(m.to_dict()) == ["peak_abs_torque", "peak_torque_rate", "max_link_position", "min_link_position",
-                                 "final_link_position", "max_deflection", "overshoot", "settling_time_2pct"]
+                                 "final_link_position", "max_deflection", "overshoot", "settling_time_2pct",
+                                 "tracking_rms", "tracking_peak"]
     assert m.to_dict()["overshoot"] is None and "overshoot" not in m.to_dict(step=False)

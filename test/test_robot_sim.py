@@ -28,7 +28,7 @@ from compliant_damping.control.laws import LAW_NAMES, ChainNominal, Gains  # noq
 from compliant_damping.control.references import Step  # noqa: E402
 from compliant_damping.sim.robot_sim import simulate_robot  # noqa: E402
 from compliant_damping.control.safety import FaultCode, Limits  # noqa: E402
-from compliant_damping.control.sample import JointSample  # noqa: E402
+from compliant_damping.control.sample import JointSample, Reference  # noqa: E402
 
 CTRL, SIM = config.load(config.bundled())
 DT = 1.0 / CTRL.control_rate
@@ -65,7 +65,7 @@ def test_a_fault_on_one_joint_puts_the_whole_robot_in_safe_mode():
     robot = controller.RobotController("decoupled_damper", nominal, gains, limits, ["shoulder", "elbow"],
                                        "zero_torque", period=1e-3)
     ok = [JointSample(0.1, 0.0, 0.1, 0.0), JointSample(0.0, 0.0, 0.0, 0.0)]
-    ref = (np.array([0.1, 0.0]), np.zeros(2), np.zeros(2))
+    ref = Reference(np.array([0.1, 0.0]), np.zeros(2), np.zeros(2))
     for k in range(5):
         robot.step(ok, ref, 1e-3 * k, 1e-3)
     assert robot.faults == [None, None]

@@ -21,7 +21,7 @@ from compliant_damping.control.controller import JointController
 from compliant_damping.io.joint_state_codec import Rejection, StateDecoder
 from compliant_damping.control.laws import LAW_NAMES, Gains, NominalModel
 from compliant_damping.control.safety import MAX_RAMP_DOWN, Fault, FaultCode, Limits, SafetyFilter
-from compliant_damping.control.sample import JointSample
+from compliant_damping.control.sample import JointSample, Reference
 from compliant_damping.control.watchdog import ClockStall, Watchdog
 
 PROPERTY = settings(max_examples=2000, deadline=None)
@@ -191,7 +191,7 @@ def test_fault_latches_until_reset_within_limits(lim, mode, seq, last):
 
 
 law_names = st.sampled_from(LAW_NAMES)
-refs = st.tuples(mostly_finite, mostly_finite, mostly_finite)
+refs = st.builds(Reference, mostly_finite, mostly_finite, mostly_finite, mostly_finite, mostly_finite)
 gains = st.builds(Gains, motor_stiffness=st.floats(0.0, 1e3), motor_damping=st.floats(0.0, 50.0),
                   link_damping=st.floats(0.1, 50.0), link_stiffness=st.floats(0.0, 500.0),
                   decoupling_stiffness=st.floats(1.0, 1e4),
@@ -218,11 +218,11 @@ def test_controller_output_finite_saturated_slew_limited(law, g, lim, mode, seq)
 
 
 @PROPERTY
-@given(law_names, samples, refs, st.sampled_from([0, 1, 2]), st.sampled_from([NAN, INF, -INF]))
+@given(law_names, samples, refs, st.sampled_from([0, 1, 2, 3, 4]), st.sampled_from([NAN, INF, -INF]))
 def test_non_finite_reference_trips(law, s, ref, i, value):
     """Every law, even zero, refuses a non-finite reference: fault, finite command. A reading
     beyond a limit is refused first (the law and its reference are not looked at then)."""
-    ref = ref[:i] + (value,) + ref[i + 1:]
+    ref = Reference(*(ref[:i] + (value,) + ref[i + 1:]))
     c = JointController(law, MODEL, Gains(link_damping=5.0, motor_stiffness=10.0), Limits(), "zero_torque")
     out = c.step(s, ref, 0.0, 1e-3)
     assert math.isfinite(out) and abs(out) <= Limits().torque
@@ -339,7 +339,7 @@ def _pd_controller(**limits):
 
 def test_stop_trips_and_reset_restores_commanding():
     c = _pd_controller()
-    s, ref = JointSample(0.0, 0.0, 0.0, 0.0), (0.3, 0.0, 0.0)
+    s, ref = JointSample(0.0, 0.0, 0.0, 0.0), Reference(0.3)
     for i in range(4):
         c.step(s, ref, 0.01 * i, 0.01)
     c.stop()
@@ -351,7 +351,7 @@ def test_stop_trips_and_reset_restores_commanding():
 
 def test_ramp_down_reaches_zero_at_the_slew_limit():
     c = _pd_controller()
-    s, ref = JointSample(0.0, 0.0, 0.0, 0.0), (0.3, 0.0, 0.0)
+    s, ref = JointSample(0.0, 0.0, 0.0, 0.0), Reference(0.3)
     for i in range(5):
         c.step(s, ref, 0.01 * i, 0.01)
     assert [c.ramp_down(0.05 + 0.01 * i) for i in range(4)] == pytest.approx([2.0, 1.0, 0.0, 0.0], abs=1e-12)
@@ -359,10 +359,10 @@ def test_ramp_down_reaches_zero_at_the_slew_limit():
 
 def test_reset_refused_while_reading_violates_a_limit():
     c = _pd_controller(deflection=0.1)
-    c.step(JointSample(0.0, 0.0, 0.2, 0.0), (0.0, 0.0, 0.0), 0.0, 0.01)
+    c.step(JointSample(0.0, 0.0, 0.2, 0.0), Reference(0.0), 0.0, 0.01)
     assert c.fault.code is FaultCode.DEFLECTION
     assert c.reset().code is FaultCode.DEFLECTION and c.fault
-    c.step(JointSample(0.0, 0.0, 0.05, 0.0), (0.0, 0.0, 0.0), 0.01, 0.01)
+    c.step(JointSample(0.0, 0.0, 0.05, 0.0), Reference(0.0), 0.01, 0.01)
     assert c.reset() is None and c.fault is None
 
 
@@ -469,4 +469,4 @@ def test_decoder_rejects_malformed_and_non_finite_messages(msg, from_effort):
     assert [s.tau_s for s in got] == [s.tau_s for s in expected]
     for s in got:
         c = JointController("motor_pd", MODEL, Gains(motor_stiffness=50.0), Limits())
-        assert math.isfinite(c.step(s, (0.0, 0.0, 0.0), 0.0, 1e-3))
+        assert math.isfinite(c.step(s, Reference(0.0), 0.0, 1e-3))

@@ -10,7 +10,6 @@ stamp times of the readings (s): the safety filter makes them monotonic for the 
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, fields
 
 import numpy as np
@@ -80,7 +79,7 @@ class JointController(ScheduledLaw):
         return self.safety.last_torque
 
     def step(self, s: JointSample, ref, t: float, dt: float) -> float:
-        """Motor torque command (N m) for reading ``s``, reference ``ref`` = (q_d, q_d', q_d''), at stamp time ``t``.
+        """Motor torque command (N m) for reading ``s``, reference ``ref`` (sample.Reference), at stamp time ``t``.
 
         ``dt`` (s) advances the law's states; the slew limit counts stamp time (safety.SafetyFilter).
         A reference position outside the position limits is clipped to the nearer limit (its
@@ -89,14 +88,12 @@ class JointController(ScheduledLaw):
         tau = None  # in fault or on a bad reading the filter commands the safe torque
         fault = self.safety.check(s)
         if self.safety.fault is None and fault is None:
-            q_d, dq_d, ddq_d = ref
-            if not (math.isfinite(q_d) and math.isfinite(dq_d) and math.isfinite(ddq_d)):
-                # laws cannot take it (math.sin(inf) raises)
+            if not ref.is_finite():  # laws cannot take it (math.sin(inf) raises)
                 self.safety.trip(Fault(FaultCode.NON_FINITE_REFERENCE, "non-finite reference"))
             else:
                 lim = self.safety.limits
-                if not lim.position_lower <= q_d <= lim.position_upper:
-                    ref = Reference(min(max(q_d, lim.position_lower), lim.position_upper), dq_d, ddq_d)
+                if not lim.position_lower <= ref.q <= lim.position_upper:
+                    ref = ref._replace(q=min(max(ref.q, lim.position_lower), lim.position_upper))
                 tau = self._run_law(s, ref, t, dt)
         return self.safety.filter_checked(s, fault, tau, t)
 
@@ -189,11 +186,12 @@ class JointBank:
         return _newest(c.last_command_time for c in self.controllers)
 
     def step(self, readings, ref, t: float, dt: float) -> np.ndarray:
-        """Motor torques (N m) for the per-joint readings at stamp time ``t``; ``ref`` = (q_d, q_d', q_d'') arrays.
+        """Motor torques (N m) for the per-joint readings at stamp time ``t``; ``ref``: a sample.Reference of arrays.
 
         Each joint's JointController.step takes its own reading and its entries of ``ref`` as floats.
         """
-        refs = zip(*(np.asarray(r, dtype=float).tolist() for r in ref))  # per joint (q_d, q_d', q_d'')
+        n = len(self.controllers)
+        refs = zip(*(np.broadcast_to(np.asarray(r, dtype=float), (n,)).tolist() for r in ref))  # per joint
         return np.array([c.step(s, Reference(*r), t, dt) for c, s, r in zip(self.controllers, readings, refs)])
 
     def ramp_down(self, t: float) -> np.ndarray:
@@ -301,17 +299,17 @@ class RobotController(ScheduledLaw):
         return np.array([f.last_torque for f in self.filters])
 
     def step(self, readings, ref, t: float, dt: float) -> np.ndarray:
-        """Motor torques (N m) for the per-joint readings at stamp time ``t``; ``ref`` = (q_d, q_d', q_d'') arrays.
+        """Motor torques (N m) for the per-joint readings at stamp time ``t``; ``ref``: a sample.Reference of arrays.
 
         Each reading is checked once (safety.SafetyFilter.check); the law runs only when every joint
         is out of fault with a reading within limits and the reference is finite.
         """
         checks = [f.check(s) for f, s in zip(self.filters, readings)]
-        ref_finite = bool(np.isfinite(ref).all())
+        ref_finite = ref.is_finite()
         tau = [None] * len(readings)
         if ref_finite and all(c is None for c in checks) and all(f.fault is None for f in self.filters):
             s = JointSample(*np.array(readings, dtype=float).T)
-            ref = Reference(np.minimum(np.maximum(ref[0], self._lower), self._upper), ref[1], ref[2])  # clipped
+            ref = ref._replace(q=np.minimum(np.maximum(ref.q, self._lower), self._upper))  # clipped
             tau = self._run_law(s, ref, t, dt).tolist()
         elif not ref_finite and self.filters[0].fault is None:
             self.filters[0].trip(Fault(FaultCode.NON_FINITE_REFERENCE, "non-finite reference"))

@@ -1,16 +1,31 @@
-"""Link-side references: desired position with its first two time derivatives.
+"""Link-side references: desired position with its first four time derivatives.
 
-Each reference is a small immutable object; ``sample(t)`` returns a
-:class:`sample.Reference` ``(q_d, q_d', q_d'')`` in rad, rad/s, rad/s^2.
+Each reference is a small immutable object; ``sample(t)`` returns a :class:`sample.Reference`
+``(q_d, q_d', q_d'', q_d''', q_d'''')`` in rad, rad/s, rad/s^2, rad/s^3, rad/s^4.
+
+Two kinds, which the laws treat differently (laws.check_reference):
+
+* set points (``set_points = True``): piecewise constant, every derivative zero. The laws
+  regulate each value in turn; a step between values is a set-point change.
+* motions: ``smoothness`` is the highest derivative that is continuous at every time. The
+  tracking laws feed the reference's inverse dynamics forward and need ``smoothness >= 4``
+  (design notes, section 4, motion tracking): :class:`Sinusoid`, :class:`RestToRest`,
+  :class:`WaypointSpline` and :class:`Cruise` have it.
 """
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.interpolate import make_interp_spline
 
 from compliant_damping.control.sample import Reference
 
-__all__ = ["Constant", "Step", "Ramp", "SmoothStep", "Cruise", "Sinusoid"]
+__all__ = ["DERIVATIVES", "Constant", "Step", "RestToRest", "MinimumJerk", "Cruise", "Sinusoid", "WaypointSpline",
+           "rest_profile"]
+
+DERIVATIVES = 4  # derivatives a reference gives; smoothness counts up to this
 
 
 @dataclass(frozen=True)
@@ -18,73 +33,108 @@ class Constant:
     """Constant set point (rad)."""
 
     position: float
+    set_points = True
+    smoothness = DERIVATIVES
 
-    def sample(self, t: float):
-        return Reference(self.position, 0.0, 0.0)
+    def sample(self, t: float) -> Reference:
+        return Reference(self.position)
 
 
 @dataclass(frozen=True)
 class Step:
-    """Step from ``start`` to ``end`` (rad) at time ``at`` (s); derivatives are zero."""
+    """Set point ``start`` (rad) until ``at`` (s), ``end`` (rad) from then on."""
 
     start: float
     end: float
     at: float = 0.0
+    set_points = True
+    smoothness = -1  # the position itself jumps
 
-    def sample(self, t: float):
-        return Reference((self.end if t >= self.at else self.start), 0.0, 0.0)
+    def sample(self, t: float) -> Reference:
+        return Reference(self.end if t >= self.at else self.start)
+
+
+def rest_profile(u: float) -> tuple:
+    """Rest-to-rest profile ``s(u) = 126u^5 - 420u^6 + 540u^7 - 315u^8 + 70u^9`` on [0, 1], u clipped.
+
+    The polynomial of least degree with s(0) = 0, s(1) = 1 and derivatives 1 to 4 zero at both
+    ends (solve the ten end conditions; e.g. Biagiotti and Melchiorri, Trajectory Planning for
+    Automatic Machines and Robots, on polynomial profiles). Joined to rest on both sides it is
+    continuous up to its fourth derivative. Returns ``(s, s', s'', s''', s'''', S)`` with
+    derivatives in u and ``S(u)`` the integral of s from 0.
+    """
+    u = min(max(u, 0.0), 1.0)
+    v = 1.0 - u
+    return (u**5 * (126.0 - 420.0 * u + 540.0 * u * u - 315.0 * u**3 + 70.0 * u**4),
+            630.0 * u**4 * v**4,
+            2520.0 * u**3 * v**3 * (1.0 - 2.0 * u),
+            2520.0 * u**2 * v**2 * (3.0 - 14.0 * u + 14.0 * u * u),
+            15120.0 * u * v * (1.0 - 2.0 * u) * (1.0 - 7.0 * u + 7.0 * u * u),
+            u**6 * (21.0 - 60.0 * u + 67.5 * u * u - 35.0 * u**3 + 7.0 * u**4))
 
 
 @dataclass(frozen=True)
-class Ramp:
-    """Constant-speed ramp from ``start`` (rad) at ``speed`` (rad/s), from ``at`` (s) for ``duration`` (s)."""
+class RestToRest:
+    """Rest-to-rest move from ``start`` to ``end`` (rad) over ``duration`` (s) from ``at`` (s),
+    with the profile of :func:`rest_profile` (continuous up to the fourth derivative)."""
 
     start: float
-    speed: float
+    end: float
+    duration: float
     at: float = 0.0
-    duration: float = math.inf
+    set_points = False
+    smoothness = DERIVATIVES
 
-    def sample(self, t: float):
-        if t < self.at:
-            return Reference(self.start, 0.0, 0.0)
-        if t >= self.at + self.duration:
-            return Reference(self.start + self.speed * self.duration, 0.0, 0.0)
-        return Reference(self.start + self.speed * (t - self.at), self.speed, 0.0)
+    def __post_init__(self):
+        if not self.duration > 0.0:
+            raise ValueError(f"duration: a rest-to-rest move needs a positive duration, got {self.duration} s")
 
-
-def _min_jerk(u: float):
-    """s(u) = 10u^3 - 15u^4 + 6u^5 on [0, 1], its first two derivatives and its integral from 0."""
-    return (u**3 * (10.0 - 15.0 * u + 6.0 * u * u), 30.0 * u * u * (1.0 - u) ** 2,
-            60.0 * u * (1.0 - 3.0 * u + 2.0 * u * u), u**4 * (2.5 - 3.0 * u + u * u))
+    def sample(self, t: float) -> Reference:
+        s, s1, s2, s3, s4, _ = rest_profile((t - self.at) / self.duration)
+        span, d = self.end - self.start, self.duration
+        return Reference(self.start + span * s, span * s1 / d, span * s2 / d**2, span * s3 / d**3, span * s4 / d**4)
 
 
 @dataclass(frozen=True)
-class SmoothStep:
-    """Quintic rest-to-rest transition from ``start`` to ``end`` (rad) over ``duration`` (s) from ``at`` (s).
+class MinimumJerk:
+    """Quintic rest-to-rest move from ``start`` to ``end`` (rad) over ``duration`` (s) from ``at`` (s).
 
-    s(u) = 10u^3 - 15u^4 + 6u^5 has zero velocity and acceleration at both ends
-    (the minimum-jerk profile).
+    s(u) = 10u^3 - 15u^4 + 6u^5, the minimum-jerk profile (Flash and Hogan, 1985): velocity and
+    acceleration are zero at both ends but the jerk jumps there (``smoothness = 2``), so the
+    tracking laws refuse it; motor_pd follows it.
     """
 
     start: float
     end: float
     duration: float
     at: float = 0.0
+    set_points = False
+    smoothness = 2
 
-    def sample(self, t: float):
-        u = min(max((t - self.at) / self.duration, 0.0), 1.0)
-        span = self.end - self.start
-        s, ds, dds, _ = _min_jerk(u)
-        return Reference(self.start + span * s, span * ds / self.duration, span * dds / self.duration**2)
+    def __post_init__(self):
+        if not self.duration > 0.0:
+            raise ValueError(f"duration: a rest-to-rest move needs a positive duration, got {self.duration} s")
+
+    def sample(self, t: float) -> Reference:
+        u = (t - self.at) / self.duration
+        span, d = self.end - self.start, self.duration
+        if not 0.0 < u < 1.0:
+            return Reference(self.end if u >= 1.0 else self.start)
+        return Reference(self.start + span * u**3 * (10.0 - 15.0 * u + 6.0 * u * u),
+                         span * 30.0 * u * u * (1.0 - u) ** 2 / d,
+                         span * 60.0 * u * (1.0 - 3.0 * u + 2.0 * u * u) / d**2,
+                         span * (60.0 - 360.0 * u + 360.0 * u * u) / d**3,
+                         span * (720.0 * u - 360.0) / d**4)
 
 
 @dataclass(frozen=True)
 class Cruise:
     """Move from ``start`` to ``end`` (rad) at constant ``speed`` (rad/s), from ``at`` (s).
 
-    The speed ramps up and down over ``blend`` seconds each with the minimum-jerk profile
-    s(u) above, so position, speed and acceleration are continuous. Needs
-    ``|end - start| >= speed * blend`` (each blend covers ``speed * blend / 2``).
+    The speed ramps up over ``blend`` seconds and down over ``brake`` seconds (default: ``blend``)
+    with the profile s(u) of :func:`rest_profile`, so the position is continuous up to its fifth
+    derivative. Needs ``|end - start| >= speed (blend + brake) / 2`` (each ramp covers half its
+    time at full speed).
     """
 
     start: float
@@ -92,43 +142,90 @@ class Cruise:
     speed: float
     blend: float
     at: float = 0.0
+    brake: float | None = None
+    set_points = False
+    smoothness = DERIVATIVES
 
     def __post_init__(self):
-        if not (self.speed > 0.0 and self.blend > 0.0 and abs(self.end - self.start) >= self.speed * self.blend):
-            raise ValueError(f"speed: need speed, blend > 0 and |end - start| >= speed * blend "
-                             f"(got {self.speed} rad/s, {self.blend} s over {abs(self.end - self.start)} rad)")
+        brake = self.blend if self.brake is None else self.brake
+        object.__setattr__(self, "brake", brake)
+        if not (self.speed > 0.0 and self.blend > 0.0 and brake > 0.0
+                and abs(self.end - self.start) >= 0.5 * self.speed * (self.blend + brake)):
+            raise ValueError(f"speed: need speed, blend, brake > 0 and |end - start| >= speed (blend + brake) / 2 "
+                             f"(got {self.speed} rad/s, {self.blend} s and {brake} s over "
+                             f"{abs(self.end - self.start)} rad)")
 
-    def sample(self, t: float):
+    def sample(self, t: float) -> Reference:
         v = math.copysign(self.speed, self.end - self.start)
-        tb = self.blend
-        cruise = abs(self.end - self.start) / self.speed - tb  # s at constant speed
+        tb, tr = self.blend, self.brake
+        cruise = abs(self.end - self.start) / self.speed - 0.5 * (tb + tr)  # s at constant speed
         tau = t - self.at
         if tau <= 0.0:
-            return Reference(self.start, 0.0, 0.0)
-        if tau < tb:
-            s, ds, _, area = _min_jerk(tau / tb)
-            return Reference(self.start + v * tb * area, v * s, v * ds / tb)
+            return Reference(self.start)
+        if tau < tb:  # speed v s(u)
+            s, s1, s2, s3, _, area = rest_profile(tau / tb)
+            return Reference(self.start + v * tb * area, v * s, v * s1 / tb, v * s2 / tb**2, v * s3 / tb**3)
         if tau < tb + cruise:
-            return Reference(self.start + v * (tau - 0.5 * tb), v, 0.0)
-        if tau < 2.0 * tb + cruise:
-            u = (tau - tb - cruise) / tb
-            s, ds, _, area = _min_jerk(u)
-            return Reference(self.start + v * (cruise + 0.5 * tb + tb * (u - area)), v * (1.0 - s), -v * ds / tb)
-        return Reference(self.end, 0.0, 0.0)
+            return Reference(self.start + v * (tau - 0.5 * tb), v)
+        if tau < tb + cruise + tr:  # speed v (1 - s(u))
+            u = (tau - tb - cruise) / tr
+            s, s1, s2, s3, _, area = rest_profile(u)
+            return Reference(self.start + v * (0.5 * tb + cruise + tr * (u - area)), v * (1.0 - s), -v * s1 / tr,
+                             -v * s2 / tr**2, -v * s3 / tr**3)
+        return Reference(self.end)
 
 
 @dataclass(frozen=True)
 class Sinusoid:
-    """``offset + amplitude sin(2 pi frequency (t - at))`` for t >= at, ``offset`` before (rad, Hz, s)."""
+    """``offset + amplitude sin(2 pi frequency (t - at))`` at every time (rad, Hz, s): smooth throughout.
+
+    A run that starts on it (sim/scenarios.py, ``track_sinusoid``) starts moving at its speed.
+    """
 
     offset: float
     amplitude: float
     frequency: float
     at: float = 0.0
+    set_points = False
+    smoothness = DERIVATIVES
 
-    def sample(self, t: float):
-        if t < self.at:
-            return Reference(self.offset, 0.0, 0.0)
+    def sample(self, t: float) -> Reference:
         w = 2.0 * math.pi * self.frequency
-        s, c = math.sin(w * (t - self.at)), math.cos(w * (t - self.at))
-        return Reference(self.offset + self.amplitude * s, self.amplitude * w * c, -self.amplitude * w * w * s)
+        a, phase = self.amplitude, w * (t - self.at)
+        s, c = math.sin(phase), math.cos(phase)
+        return Reference(self.offset + a * s, a * w * c, -a * w**2 * s, -a * w**3 * c, a * w**4 * s)
+
+
+@dataclass(frozen=True)
+class WaypointSpline:
+    """Rest-to-rest spline through ``positions`` (rad) at ``times`` (s, increasing), at rest before
+    the first and after the last.
+
+    A ninth-degree interpolating spline (scipy.interpolate.make_interp_spline, k = 9) with
+    derivatives 1 to 4 zero at both ends: continuous up to the fourth derivative everywhere,
+    the joins to rest included.
+    """
+
+    times: tuple
+    positions: tuple
+    set_points = False
+    smoothness = DERIVATIVES
+    _spline: object = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self):
+        t, y = np.asarray(self.times, dtype=float), np.asarray(self.positions, dtype=float)
+        if t.ndim != 1 or t.shape != y.shape or len(t) < 2:
+            raise ValueError(f"positions: need as many positions as times, at least two (got {len(y)} and {len(t)})")
+        if not (np.all(np.isfinite(t)) and np.all(np.isfinite(y))):
+            raise ValueError("times: waypoints must be finite")
+        if not np.all(np.diff(t) > 0.0):
+            raise ValueError(f"times: must increase strictly, got {t.tolist()}")
+        rest = [(d, 0.0) for d in range(1, DERIVATIVES + 1)]
+        object.__setattr__(self, "_spline", make_interp_spline(t, y, k=2 * DERIVATIVES + 1, bc_type=(rest, rest)))
+
+    def sample(self, t: float) -> Reference:
+        t0, t1 = self.times[0], self.times[-1]
+        if t <= t0 or t >= t1:
+            return Reference(float(self.positions[0] if t <= t0 else self.positions[-1]))
+        spline = self._spline
+        return Reference(*(float(spline(t, nu=d)) for d in range(DERIVATIVES + 1)))

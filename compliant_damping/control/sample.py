@@ -33,12 +33,21 @@ class JointSample(NamedTuple):
 class Reference(NamedTuple):
     """Desired link motion of one joint (or, with arrays, of every joint of a robot).
 
-    q: position (rad); dq: speed (rad/s); ddq: acceleration (rad/s^2).
+    q: position (rad); dq: speed (rad/s); ddq: acceleration (rad/s^2); dddq: jerk (rad/s^3);
+    ddddq: fourth derivative (rad/s^4). The tracking laws feed the reference's inverse dynamics
+    forward and need all four derivatives (design notes, section 4, motion tracking); a set point
+    leaves them zero.
     """
 
     q: float
     dq: float = 0.0
     ddq: float = 0.0
+    dddq: float = 0.0
+    ddddq: float = 0.0
+
+    def is_finite(self) -> bool:
+        """True when the position and all four derivatives are finite (every entry, for arrays)."""
+        return all(bool(np.isfinite(v).all()) if isinstance(v, np.ndarray) else math.isfinite(v) for v in self)
 
 
 def stack_references(refs) -> Reference:

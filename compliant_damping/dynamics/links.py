@@ -18,7 +18,7 @@ from typing import NamedTuple, Sequence
 
 import numpy as np
 
-__all__ = ["RobotModelError", "ForwardDerivatives", "LinkMotion", "LinkDynamics", "IndependentLinks"]
+__all__ = ["RobotModelError", "ForwardDerivatives", "LinkMotion", "DrivingTorque", "LinkDynamics", "IndependentLinks"]
 
 
 class RobotModelError(ValueError):
@@ -82,6 +82,24 @@ class LinkMotion(NamedTuple):
     jerk: np.ndarray
 
 
+class DrivingTorque(NamedTuple):
+    """The link torque that drives a desired motion, and its first two time derivatives along it.
+
+    Attributes (arrays per joint; floats for a bench joint)
+    ----------
+    torque : ndarray, shape (n,)
+        tau_d = M(q_d) q_d'' + c(q_d, q_d') + g(q_d) (N m): inverse dynamics (RNEA).
+    rate : ndarray, shape (n,)
+        Its time derivative tau_d' (N m/s).
+    second_rate : ndarray, shape (n,)
+        Its second time derivative tau_d'' (N m/s^2).
+    """
+
+    torque: np.ndarray
+    rate: np.ndarray
+    second_rate: np.ndarray
+
+
 def as_vector(x, n: int, name: str) -> np.ndarray:
     """``x`` as a float array of shape (n,); ValueError naming ``name`` otherwise."""
     out = np.asarray(x, dtype=float)
@@ -128,6 +146,18 @@ class LinkDynamics(ABC):
     @abstractmethod
     def inverse(self, q, dq, ddq) -> np.ndarray:
         """Inverse dynamics: tau = M q'' + c + g (N m) for the acceleration ``ddq`` (rad/s^2)."""
+
+    @abstractmethod
+    def driving_torque(self, q, dq, ddq, dddq, ddddq) -> DrivingTorque:
+        """Inverse dynamics along a desired motion and its first two time derivatives.
+
+        Parameters
+        ----------
+        q, dq, ddq, dddq, ddddq : array_like, shape (n,)
+            The motion's position (rad) and its first four time derivatives (rad/s to rad/s^4),
+            the fields of a control.sample.Reference. A known, noise-free reference: measured
+            signals never come here.
+        """
 
     @abstractmethod
     def forward_derivatives(self, q, dq, tau) -> ForwardDerivatives:
@@ -247,6 +277,15 @@ class IndependentLinks(LinkDynamics):
     def inverse(self, q, dq, ddq) -> np.ndarray:
         as_vector(dq, self.n, "dq")
         return self.inertia * as_vector(ddq, self.n, "ddq") + self.gravity(q)
+
+    def driving_torque(self, q, dq, ddq, dddq, ddddq) -> DrivingTorque:
+        """Closed form, elementwise, with ``g_i = m g0 l sin(q_i + q_off,i)`` and I the inertia:
+        ``tau = I q'' + g``, ``tau' = I q^(3) + g' q'``, ``tau'' = I q^(4) + g'' q'^2 + g' q''``."""
+        q, dq, ddq = as_vector(q, self.n, "q"), as_vector(dq, self.n, "dq"), as_vector(ddq, self.n, "ddq")
+        dddq, ddddq = as_vector(dddq, self.n, "dddq"), as_vector(ddddq, self.n, "ddddq")
+        g, slope = self.gravity(q), self._gravity_slope(q)
+        return DrivingTorque(self.inertia * ddq + g, self.inertia * dddq + slope * dq,
+                             self.inertia * ddddq - g * dq * dq + slope * ddq)
 
     def forward_derivatives(self, q, dq, tau) -> ForwardDerivatives:
         return ForwardDerivatives(ddq=self.forward(q, dq, tau), ddq_dq=np.diag(-self._gravity_slope(q) / self.inertia),

@@ -6,7 +6,8 @@ given names, whatever the tree order of the URDF. Gravity acts along -z of the U
 
 Pinocchio (PyPI ``pin``, imported as ``pinocchio``) is imported when a chain is built, so the
 rest of the package works without it. Algorithms: CRBA for M(q), RNEA for inverse dynamics and
-c(q, q'), ABA for forward dynamics and its analytic derivatives (Carpentier and Mansard 2018),
+c(q, q'), ABA for forward dynamics and the analytic derivatives of ABA and RNEA (Carpentier and
+Mansard 2018),
 all as Pinocchio implements them. The Pinocchio model is fixed after construction; one
 Pinocchio data object holds the working values (a chain is not thread safe).
 """
@@ -19,12 +20,14 @@ from typing import Sequence
 
 import numpy as np
 
-from compliant_damping.dynamics.links import ForwardDerivatives, LinkDynamics, LinkMotion, RobotModelError, as_vector
+from compliant_damping.dynamics.links import (DrivingTorque, ForwardDerivatives, LinkDynamics, LinkMotion,
+                                             RobotModelError, as_vector)
 from compliant_damping.io.parameter_files import share_dir
 
-__all__ = ["UrdfChain", "bundled_urdf", "STANDARD_GRAVITY"]
+__all__ = ["UrdfChain", "bundled_urdf", "DRIVING_STEP", "STANDARD_GRAVITY"]
 
 STANDARD_GRAVITY = 9.81  # m/s^2, default magnitude of gravity (along -z of the URDF world)
+DRIVING_STEP = 1e-3  # s: time step of UrdfChain.driving_torque's second derivative along the reference
 MOVABLE = ("revolute", "continuous", "prismatic", "floating", "planar")
 
 
@@ -201,6 +204,33 @@ class UrdfChain(LinkDynamics):
     def inverse(self, q, dq, ddq) -> np.ndarray:
         self._load(q, dq, ddq)
         return self._pin.rnea(self._model, self._data, self._q, self._v, self._w)[self._perm]
+
+    def _torque_and_rate(self, q, v, a, j) -> tuple:
+        """RNEA torque and its time derivative ``dtau/dq q' + dtau/dq' q'' + M q'''`` from Pinocchio's
+        analytic RNEA derivatives, in Pinocchio's order (N m, N m/s)."""
+        d_dq, d_dv, mass = self._pin.computeRNEADerivatives(self._model, self._data, q, v, a)
+        return self._data.tau.copy(), d_dq.dot(v) + d_dv.dot(a) + mass.dot(j)
+
+    def driving_torque(self, q, dq, ddq, dddq, ddddq) -> DrivingTorque:
+        """RNEA and its first time derivative exactly (Pinocchio's analytic RNEA derivatives); the second
+        derivative as the derivative of that first one along the reference's own Taylor expansion
+        (the known, noise-free motion: position to fourth derivative at this instant), by the
+        fourth-order central difference with step DRIVING_STEP (truncation of order h^4)."""
+        n = self.n
+        q, v, a = as_vector(q, n, "q"), as_vector(dq, n, "dq"), as_vector(ddq, n, "ddq")
+        j, s = as_vector(dddq, n, "dddq"), as_vector(ddddq, n, "ddddq")
+        p = self._perm
+        order = np.empty((5, n))
+        order[:, p] = q, v, a, j, s  # Pinocchio's joint order
+        q, v, a, j, s = order
+        tau, rate = self._torque_and_rate(q, v, a, j)
+
+        def rate_at(h):
+            return self._torque_and_rate(q + h * (v + h / 2 * (a + h / 3 * (j + h / 4 * s))),
+                                         v + h * (a + h / 2 * (j + h / 3 * s)), a + h * (j + h / 2 * s), j + h * s)[1]
+        h = DRIVING_STEP
+        second = (8.0 * (rate_at(h) - rate_at(-h)) - (rate_at(2.0 * h) - rate_at(-2.0 * h))) / (12.0 * h)
+        return DrivingTorque(tau[p], rate[p], second[p])
 
     def forward_derivatives(self, q, dq, tau) -> ForwardDerivatives:
         self._load(q, dq, tau)

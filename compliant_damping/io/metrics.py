@@ -8,9 +8,10 @@ import numpy as np
 
 from compliant_damping.io.runs import Run
 
-__all__ = ["JointMetrics", "STEP_FIELDS", "SETTLING_BAND", "joint_metrics", "to_dicts"]
+__all__ = ["JointMetrics", "STEP_FIELDS", "TRACKING_FIELDS", "SETTLING_BAND", "joint_metrics", "to_dicts"]
 
 STEP_FIELDS = ("overshoot", "settling_time_2pct")
+TRACKING_FIELDS = ("tracking_rms", "tracking_peak")
 SETTLING_BAND = 0.02  # fraction of the step size: the 2 % band, common practice
 
 
@@ -34,6 +35,9 @@ class JointMetrics:
     settling_time_2pct : float or None
         Time from the step until the link last enters the band of 2 % of the step around its target (s);
         None when the run is not a step response or never settles.
+    tracking_rms, tracking_peak : float or None
+        RMS and largest |q - q_d| over the run (rad) on a tracking scenario (scenarios.TRACKING),
+        q_d sampled at the state times; None otherwise.
     """
 
     peak_abs_torque: float
@@ -44,10 +48,14 @@ class JointMetrics:
     max_deflection: float
     overshoot: float | None = None
     settling_time_2pct: float | None = None
+    tracking_rms: float | None = None
+    tracking_peak: float | None = None
 
     def to_dict(self, step: bool = True) -> dict:
-        """The fields as a JSON-ready dict, in declaration order; ``step=False`` leaves out STEP_FIELDS."""
-        return {k: v for k, v in dataclasses.asdict(self).items() if step or k not in STEP_FIELDS}
+        """The fields as a JSON-ready dict, in declaration order; ``step=False`` leaves out STEP_FIELDS
+        and TRACKING_FIELDS (a recording without its scenario has neither)."""
+        return {k: v for k, v in dataclasses.asdict(self).items()
+                if step or k not in STEP_FIELDS + TRACKING_FIELDS}
 
 
 def _step_response(t, q, t_step: float, start: float, size: float) -> dict:
@@ -74,7 +82,8 @@ def joint_metrics(run: Run, scenario=None) -> dict:
         States and commands on their own time bases; the torque rate uses the command times.
     scenario : scenarios.Scenario, optional
         The scenario that produced the run; with a set-point step (``scenario.step``) the step
-        fields are measured from the step time and the initial positions of the joints it steps.
+        fields are measured from the step time and the initial positions of the joints it steps;
+        on a tracking scenario (``scenario.tracking``) the tracking fields against its references.
 
     Raises
     ------
@@ -90,10 +99,13 @@ def joint_metrics(run: Run, scenario=None) -> dict:
     for j, name in enumerate(run.joint_names):
         q, tau = run.q[:, j], run.tau_m[:, j]
         rate = np.abs(np.diff(tau))[positive] / dt_cmd[positive]
-        step = {}
+        extra = {}
         if scenario is not None and scenario.step is not None and j in scenario.acting:
             t_step, size = scenario.step
-            step = _step_response(run.t, q, t_step, float(scenario.initial[j, 0]), size)
+            extra = _step_response(run.t, q, t_step, float(scenario.initial[j, 0]), size)
+        if scenario is not None and scenario.tracking:
+            error = q - np.array([scenario.references[j].sample(t).q for t in run.t.tolist()])
+            extra = {"tracking_rms": float(np.sqrt(np.mean(error**2))), "tracking_peak": float(np.max(np.abs(error)))}
         out[name] = JointMetrics(
             peak_abs_torque=float(np.max(np.abs(tau))),
             peak_torque_rate=float(np.max(rate)) if len(rate) else 0.0,
@@ -101,7 +113,7 @@ def joint_metrics(run: Run, scenario=None) -> dict:
             min_link_position=float(np.min(q)),
             final_link_position=float(q[-1]),
             max_deflection=float(np.max(np.abs(run.theta[:, j] - q))),
-            **step)
+            **extra)
     return out
 
 

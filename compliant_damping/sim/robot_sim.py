@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from compliant_damping.control.laws import check_reference
 from compliant_damping.control.sample import JointSample, stack_references
 from compliant_damping.dynamics.elastic_chain import ElasticChain, ElasticElements
 from compliant_damping.io.runs import Run
@@ -65,7 +66,14 @@ def simulate_robot(plant, controller, scenario, duration: float | None = None, c
     sensors : sequence of model.SensorParams, optional
         Per joint (config.SimJoint.sensor), noise seeded with ``seed``; ideal sensors (the true state)
         by default.
+
+    Raises
+    ------
+    ValueError
+        A reference the law cannot follow, with the reason (laws.check_reference).
     """
+    for reference in scenario.references:
+        check_reference(controller.law_name, reference)
     duration = scenario.duration if duration is None else duration
     n = plant.n
     rng = np.random.default_rng(seed)

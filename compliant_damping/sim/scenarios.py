@@ -13,6 +13,10 @@ for any parameter file:
                       rest-to-rest move was tried too: its link speed at the stop depended on each
                       law's lag, 0.3 to 1.4 rad/s, which made the comparison unfair.)
 ``external_impulse``  hold the initial position; a short torque pulse hits the link at 0.2 s.
+``track_sinusoid``    follow ``offset + amplitude sin(2 pi frequency t)`` around the initial position,
+                      starting on it (position, speed and the spring's torque of the reference).
+``track_move``        from rest, a rest-to-rest move of ``move`` rad over ``move_time`` s from 0.1 s
+                      (references.RestToRest, continuous to the fourth derivative).
 ``foot_landing``      hold the initial position while the floor of the parameter file's contact
                       (a URDF frame on a plane) rises into the frame: it starts ``gap`` below the
                       frame at 0.05 s and moves up at ``landing_speed`` until ``travel`` past
@@ -27,13 +31,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from compliant_damping.control.references import Constant, Cruise, Step
+from compliant_damping.control.references import Constant, Cruise, RestToRest, Sinusoid, Step
+from compliant_damping.control.sample import stack_references
 from compliant_damping.dynamics.links import IndependentLinks
 
 __all__ = ["SCENARIOS", "Scenario", "make", "rest_state"]
 
-SCENARIOS = ("free_oscillation", "setpoint_step", "end_stop_impact", "external_impulse", "foot_landing")
+SCENARIOS = ("free_oscillation", "setpoint_step", "end_stop_impact", "external_impulse", "track_sinusoid",
+             "track_move", "foot_landing")
+TRACKING = ("track_sinusoid", "track_move")  # scenarios whose metrics include the tracking error
 LANDING_START = 0.05  # s: the floor starts to rise
+SPEED_UP = 0.3  # s: end_stop_impact's speed ramp, gentle so the reference's feed-forward stays small
 
 
 @dataclass(frozen=True)
@@ -57,6 +65,8 @@ class Scenario:
         dynamics.elastic_chain.PlaneContact of the run (the file's floor; moving in foot_landing).
     acting : tuple
         Indices of the joints the scenario moves, deflects or hits (the others hold still).
+    tracking : bool
+        The references move and the metrics report the tracking error.
     """
 
     name: str
@@ -67,6 +77,7 @@ class Scenario:
     step: tuple | None = None
     contacts: tuple = ()
     acting: tuple = ()
+    tracking: bool = False
 
 
 def _spring_deflection(plant, torque: float) -> float:
@@ -90,10 +101,28 @@ def rest_state(sim_joints, links=None) -> np.ndarray:
     return state
 
 
+def on_reference(sim_joints, links, references) -> np.ndarray:
+    """(n, 4) state on the references at t = 0: the links at their position and speed, each spring
+    carrying the torque that drives its link's reference motion (the links' inverse dynamics, plus
+    the link viscous friction) and deflecting at that torque's rate (rad, rad/s)."""
+    ref = stack_references([r.sample(0.0) for r in references])
+    drive = links.driving_torque(*ref)
+    viscous = np.array([j.plant.link_viscous for j in sim_joints])
+    torque, rate = drive.torque + viscous * ref.dq, drive.rate + viscous * ref.ddq
+    state = np.zeros((len(sim_joints), 4))
+    state[:, 0], state[:, 1] = ref.q, ref.dq
+    for i, j in enumerate(sim_joints):
+        phi = _spring_deflection(j.plant, float(torque[i]))
+        state[i, 2] = ref.q[i] + phi
+        state[i, 3] = ref.dq[i] + rate[i] / (j.plant.spring_stiffness + 3.0 * j.plant.spring_cubic * phi * phi)
+    return state
+
+
 def make(name: str, sim_joints, *, joints=None, links=None, floor=None, step: float = 0.05, deflection: float = 0.02,
          impulse: float = 0.5, impulse_width: float = 0.005, overshoot: float = 0.05,
          impact_speed: float = 1.0, landing_speed: float = 0.35, gap: float = 0.02,
-         travel: float = 0.03) -> Scenario:
+         travel: float = 0.03, amplitude: float = 0.3, frequency: float = 1.0, move: float = 0.3,
+         move_time: float = 0.8) -> Scenario:
     """Scenario ``name`` for the simulated joints (config.SimJoint) of a parameter file.
 
     Parameters
@@ -119,6 +148,10 @@ def make(name: str, sim_joints, *, joints=None, links=None, floor=None, step: fl
     landing_speed, gap, travel : float
         foot_landing: floor speed (m/s), its start below the frame (m) and how far it moves
         past touchdown (m).
+    amplitude, frequency : float
+        track_sinusoid: amplitude (rad) and frequency (Hz) around the initial position.
+    move, move_time : float
+        track_move: distance (rad) and duration (s) of the rest-to-rest move.
     """
     if name not in SCENARIOS:
         raise ValueError(f"scenario: unknown {name!r}; choose one of {', '.join(SCENARIOS)}")
@@ -143,6 +176,15 @@ def make(name: str, sim_joints, *, joints=None, links=None, floor=None, step: fl
     if name == "setpoint_step":
         refs = tuple(Step(float(q), float(q) + step, 0.1) if a else h for q, a, h in zip(q0, act, hold))
         return Scenario(name, 2.0, initial, refs, external, step=(0.1, step), contacts=contacts, acting=acting)
+    if name == "track_sinusoid":
+        refs = tuple(Sinusoid(float(q), amplitude, frequency) if a else h for q, a, h in zip(q0, act, hold))
+        return Scenario(name, 3.0, on_reference(sim_joints, links, refs), refs, external, contacts=contacts,
+                        acting=acting, tracking=True)
+    if name == "track_move":
+        refs = tuple(RestToRest(float(q), float(q) + move, move_time, 0.1) if a else h
+                     for q, a, h in zip(q0, act, hold))
+        return Scenario(name, move_time + 0.6, initial, refs, external, contacts=contacts, acting=acting,
+                        tracking=True)
     if name == "foot_landing":
         if floor is None:
             raise ValueError("contact.frame: foot_landing needs a floor contact on a URDF frame")
@@ -159,8 +201,9 @@ def make(name: str, sim_joints, *, joints=None, links=None, floor=None, step: fl
             upper = j.plant.stop_upper
             if not math.isfinite(upper):
                 raise ValueError(f"{j.name}.stop_upper: end_stop_impact needs a finite upper end stop")
-            # speed blends of 2 overshoot / speed: braking starts as the reference passes the stop
-            refs[i] = Cruise(j.initial_position, upper + overshoot, impact_speed, 2.0 * overshoot / impact_speed, 0.1)
+            # braking over 2 overshoot / speed: it starts as the reference passes the stop
+            refs[i] = Cruise(j.initial_position, upper + overshoot, impact_speed, SPEED_UP, 0.1,
+                             brake=2.0 * overshoot / impact_speed)
         return Scenario(name, 2.0, initial, tuple(refs), external, contacts=contacts, acting=acting)
     rows = [[i, 0.2, 0.2 + impulse_width, impulse / impulse_width] for i in acting]
     return Scenario(name, 1.5, initial, hold, np.array(rows, dtype=float).reshape(-1, 4), contacts=contacts,

@@ -9,6 +9,7 @@ import time
 
 import numpy as np
 
+from compliant_damping.control.laws import check_reference
 from compliant_damping.dynamics import bench_plant
 from compliant_damping.io.runs import Run
 from compliant_damping.sim.sensors import SensorChannel
@@ -21,8 +22,11 @@ def simulate(sim_joints, controllers, scenario, duration=None, control_dt=1e-3, 
     """Run ``scenario`` for ``duration`` s (default: the scenario's) and return it as a runs.Run.
 
     sim_joints: config.SimJoint per joint (plant + sensor); controllers: one
-    controller.JointController per joint; progress: optional callable(ticks done).
+    controller.JointController per joint; progress: optional callable(ticks done). A reference
+    the joint's law cannot follow raises ValueError with the reason (laws.check_reference).
     """
+    for c, reference in zip(controllers, scenario.references):
+        check_reference(c.law_name, reference)
     duration = scenario.duration if duration is None else duration
     params = bench_plant.pack([j.plant for j in sim_joints])
     rng = np.random.default_rng(seed)
