@@ -2,9 +2,10 @@
 
 Per law, three processes on loopback DDS (the environment must say so; see :func:`check_env`):
 the simulated joint in lock step, the controller on sim time with that law, and the scenario
-player, which activates the controller, streams the scenario's reference on ``link_reference``,
-records ``joint_states`` and ``motor_effort`` and paces the loop (the joint takes its commands
-from the player on config.PACED_EFFORT, see nodes/scenario_player.py). The same scenario then runs offline
+player, which activates the controller, sends the scenario's motion on ``link_trajectory`` (the
+spline through its positions every 5 ms, scenarios.streamed), records ``joint_states`` and
+``motor_effort`` and paces the loop (the joint takes its commands from the player on
+config.PACED_EFFORT, see nodes/scenario_player.py). The same streamed scenario then runs offline
 (simulate.simulate); both runs are runs.Run, summarised by metrics.joint_metrics. Writes ``summary.json``, the
 processes' logs and ``impact.png`` (link position and motor torque around the impact, one trace
 per law) to the output folder. No ROS imports here: the ROS work happens in the child processes.
@@ -141,7 +142,7 @@ def run(params_file=None, out="results/demo", laws=DEMO_LAWS, timeout: float = 6
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     ctrl, sim = config.load(params_file)
-    scenario = scenarios.make(SCENARIO, sim.joints)
+    scenario = scenarios.streamed(scenarios.make(SCENARIO, sim.joints))  # the reference as ROS carries it
     dt = 1.0 / ctrl.control_rate
     summary = {"scenario": SCENARIO, "parameter_file": str(params_file), "laws": {}}
     ros_results = {}

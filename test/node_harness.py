@@ -20,6 +20,7 @@ from rclpy.parameter import Parameter
 from rclpy.qos import QoSProfile
 from rosgraph_msgs.msg import Clock
 from sensor_msgs.msg import JointState
+from trajectory_msgs.msg import JointTrajectory
 from std_msgs.msg import Float64MultiArray
 from std_srvs.srv import Trigger
 
@@ -59,6 +60,7 @@ class Probe:
         self.node.create_subscription(JointState, "joint_states", self.states.append, reliable)
         self.node.create_subscription(DiagnosticArray, "/diagnostics", self.diagnostics.append, 10)
         self.reference = self.node.create_publisher(JointState, "link_reference", reliable)
+        self.trajectory = self.node.create_publisher(JointTrajectory, "link_trajectory", reliable)
         self.joint_states = self.node.create_publisher(JointState, "joint_states", reliable)
         self.clock = self.node.create_publisher(Clock, "/clock", 10)
         self.impulse = self.node.create_publisher(JointState, "external_impulse", reliable)

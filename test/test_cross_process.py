@@ -111,7 +111,7 @@ def over_ros(tmp_path_factory):
 
 @pytest.mark.parametrize("law", LAWS)
 def test_ros_run_reproduces_the_offline_simulator(over_ros, law):
-    scenario = scenarios.make(SCENARIO, SIM.joints)
+    scenario = scenarios.streamed(scenarios.make(SCENARIO, SIM.joints))  # the motion as link_trajectory carries it
     ros = over_ros(law)
     offline = simulate.simulate(SIM.joints, controller.bank(dataclasses.replace(CTRL, law=law)),
                                 scenario, control_dt=DT, substeps=SIM.substeps, seed=SIM.seed)

@@ -1,14 +1,14 @@
-"""Pure parts of the ROS shell: joint-state decoding, reference schedule, tick timing, plant stepping."""
+"""Pure parts of the ROS shell: joint-state decoding, tick timing, plant stepping."""
 import math
 
 import numpy as np
 import pytest
 
 from compliant_damping.io import config
-from compliant_damping.io.joint_state_codec import (ReferenceSchedule, Rejection, StateDecoder, Stamp, StampOrder,
+from compliant_damping.io.joint_state_codec import (Rejection, StateDecoder, Stamp, StampOrder,
                                                     TickClock, encode_states, pick_values)
 from compliant_damping.sim.plant import Plant
-from compliant_damping.control.sample import JointSample, Reference
+from compliant_damping.control.sample import JointSample
 
 CTRL, SIM = config.load(config.bundled())
 JOINT_LIMITS = CTRL.joints[0].limits
@@ -54,29 +54,6 @@ def test_pick_values():
     assert "names" in pick_values(["a"], [], ["a"]).reason
     assert "non-finite" in pick_values(["a"], [math.inf], ["a"]).reason
     assert "repeated" in pick_values(["a", "a"], [1.0, 2.0], ["a"]).reason
-
-
-def test_reference_schedule_applies_each_reference_at_its_stamp():
-    refs = ReferenceSchedule(["knee"], [JOINT_LIMITS])
-    assert refs.add(0.2, ["knee"], [0.5], []) is None and refs.add(0.1, ["knee"], [0.3], [1.0]) is None
-    assert refs.at(0.05) == [None] and len(refs) == 2
-    assert refs.at(0.1) == [Reference(0.3, 1.0)]
-    assert refs.at(0.3) == [Reference(0.5)] and len(refs) == 0
-    assert "no configured joint" in refs.add(0.0, ["hip"], [0.1], []).reason
-    assert "non-finite" in refs.add(0.0, ["knee"], [math.nan], []).reason
-    refs.clear()
-    assert refs.at(1.0) == [None]
-
-
-def test_reference_schedule_clips_positions_and_refuses_speeds_beyond_the_limits():
-    """The bundled knee: position limits [-1, 1] rad, link speed limit 8 rad/s (one_joint.yaml)."""
-    refs = ReferenceSchedule(["knee"], [JOINT_LIMITS])
-    assert refs.add(0.0, ["knee"], [5.0], [0.0]) is None  # 5 rad: clipped to the upper limit
-    assert refs.at(0.0) == [Reference(JOINT_LIMITS.position_upper)] and refs.clipped == 1
-    assert "clipped" in refs.last_issue.reason
-    refused = refs.add(0.0, ["knee"], [0.1], [1e6])
-    assert "link speed limit" in refused.reason and refs.rejected == 1 and len(refs) == 0
-    assert refs.at(0.1) == [Reference(JOINT_LIMITS.position_upper)]  # the refused one changed nothing
 
 
 def test_stamp_order_classifies_repeats_backwards_and_far_ahead():

@@ -154,7 +154,7 @@ def test_references_beyond_the_limits_are_clipped_or_refused(ros):
     assert ros.spin_until(lambda: ctrl.refs.clipped == 1, 5.0)
     _tick(ros, ctrl, t + PERIOD)
     upper = LIMITS["knee_motor"].position_upper
-    assert ctrl.refs.current[0][0] == upper  # the law aims at the limit, not at 5 rad
+    assert ctrl.refs.current[0].value.q == upper  # the law aims at the limit, not at 5 rad
     ros.probe.reference.publish(JointState(name=["knee"], position=[0.1], velocity=[1e6]))
     assert ros.spin_until(lambda: ctrl.refs.rejected == 1, 5.0) and len(ctrl.refs) == 0
 

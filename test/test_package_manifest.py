@@ -19,7 +19,7 @@ KEYS = {
     "builtin_interfaces": ("builtin_interfaces", None), "ament_index_python": ("ament_index_python", None),
     "sensor_msgs": ("sensor_msgs", None), "std_msgs": ("std_msgs", None), "std_srvs": ("std_srvs", None),
     "diagnostic_msgs": ("diagnostic_msgs", None), "lifecycle_msgs": ("lifecycle_msgs", None),
-    "rosgraph_msgs": ("rosgraph_msgs", None),
+    "rosgraph_msgs": ("rosgraph_msgs", None), "trajectory_msgs": ("trajectory_msgs", None),
     "launch": ("launch", None), "launch_ros": ("launch_ros", None), "launch_testing": ("launch_testing", None),
     "numpy": ("python3-numpy", "numpy"), "scipy": ("python3-scipy", "scipy"), "yaml": ("python3-yaml", "PyYAML"),
     "matplotlib": ("python3-matplotlib", "matplotlib"), "tqdm": ("python3-tqdm", "tqdm"),

@@ -18,12 +18,12 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.interpolate import make_interp_spline
+from scipy.interpolate import PPoly, make_interp_spline
 
 from compliant_damping.control.sample import Reference
 
-__all__ = ["DERIVATIVES", "Constant", "Step", "RestToRest", "MinimumJerk", "Cruise", "Sinusoid", "WaypointSpline",
-           "rest_profile"]
+__all__ = ["DERIVATIVES", "Constant", "Held", "Step", "RestToRest", "MinimumJerk", "Cruise", "Sinusoid",
+           "WaypointSpline", "rest_profile", "spline_through"]
 
 DERIVATIVES = 4  # derivatives a reference gives; smoothness counts up to this
 
@@ -38,6 +38,17 @@ class Constant:
 
     def sample(self, t: float) -> Reference:
         return Reference(self.position)
+
+
+@dataclass(frozen=True)
+class Held:
+    """One streamed reference sample (position and its derivatives), held until the next arrives."""
+
+    value: Reference
+    set_points = True
+
+    def sample(self, t: float) -> Reference:
+        return self.value
 
 
 @dataclass(frozen=True)
@@ -93,6 +104,11 @@ class RestToRest:
         s, s1, s2, s3, s4, _ = rest_profile((t - self.at) / self.duration)
         span, d = self.end - self.start, self.duration
         return Reference(self.start + span * s, span * s1 / d, span * s2 / d**2, span * s3 / d**3, span * s4 / d**4)
+
+    @property
+    def motion_span(self) -> tuple:
+        """(first, last) time (s) of the motion; at rest outside it."""
+        return self.at, self.at + self.duration
 
 
 @dataclass(frozen=True)
@@ -154,6 +170,11 @@ class Cruise:
             raise ValueError(f"speed: need speed, blend, brake > 0 and |end - start| >= speed (blend + brake) / 2 "
                              f"(got {self.speed} rad/s, {self.blend} s and {brake} s over "
                              f"{abs(self.end - self.start)} rad)")
+
+    @property
+    def motion_span(self) -> tuple:
+        """(first, last) time (s) of the motion; at rest outside it."""
+        return self.at, self.at + abs(self.end - self.start) / self.speed + 0.5 * (self.blend + self.brake)
 
     def sample(self, t: float) -> Reference:
         v = math.copysign(self.speed, self.end - self.start)
@@ -223,9 +244,56 @@ class WaypointSpline:
         rest = [(d, 0.0) for d in range(1, DERIVATIVES + 1)]
         object.__setattr__(self, "_spline", make_interp_spline(t, y, k=2 * DERIVATIVES + 1, bc_type=(rest, rest)))
 
+    @property
+    def motion_span(self) -> tuple:
+        """(first, last) time (s) of the motion; at rest outside it."""
+        return self.times[0], self.times[-1]
+
+    def extremes(self, derivative: int) -> tuple:
+        """(min, max) of the position (``derivative`` 0) or one of its derivatives over all time.
+
+        Exact up to round-off: the extremes lie at the ends or where the next derivative
+        vanishes, found as roots of the piecewise polynomial (scipy.interpolate.PPoly.roots).
+        """
+        spline, order = self._spline, self._spline.k
+        breaks = np.unique(spline.t[order:-order])
+        # the next derivative as a scipy PPoly from its Taylor coefficients at each break (built by
+        # hand: PPoly.from_spline goes through FITPACK, which handles degree <= 5 and crashed here)
+        degree = order - derivative - 1
+        coefficients = [spline(breaks[:-1], nu=derivative + 1 + m) / math.factorial(m) for m in range(degree, -1, -1)]
+        roots = PPoly(np.array(coefficients), breaks).roots(extrapolate=False)
+        candidates = np.concatenate([breaks, roots[np.isfinite(roots)]])
+        values = spline(candidates, nu=derivative)
+        rest = [float(self.positions[0]), float(self.positions[-1])] if derivative == 0 else [0.0]
+        return min(float(values.min()), *rest), max(float(values.max()), *rest)
+
     def sample(self, t: float) -> Reference:
         t0, t1 = self.times[0], self.times[-1]
         if t <= t0 or t >= t1:
             return Reference(float(self.positions[0] if t <= t0 else self.positions[-1]))
         spline = self._spline
         return Reference(*(float(spline(t, nu=d)) for d in range(DERIVATIVES + 1)))
+
+
+def spline_through(motion, spacing: float) -> WaypointSpline:
+    """The :class:`WaypointSpline` through ``motion``'s positions at knots at most ``spacing`` s apart.
+
+    ``motion`` is a rest-to-rest motion (it has ``motion_span``): the spline is at rest where it
+    is. Knot times are whole nanoseconds, so a ROS message (stamps and durations in ns) carries
+    them exactly. This is how a motion goes over ROS (nodes/scenario_player.py) and what the
+    offline simulator is given to reproduce that run.
+
+    Raises
+    ------
+    ValueError
+        ``motion`` does not start and end at rest (a sinusoid, say), or ``spacing`` is not positive.
+    """
+    if not hasattr(motion, "motion_span"):
+        raise ValueError(f"reference: {type(motion).__name__} does not start and end at rest; a trajectory "
+                         "through waypoints does (use a rest-to-rest move, a cruise or a waypoint spline)")
+    if not spacing > 0.0:
+        raise ValueError(f"spacing: need a positive knot spacing, got {spacing} s")
+    first, last = (round(t * 1e9) for t in motion.motion_span)
+    count = max(1, math.ceil((last - first) * 1e-9 / spacing - 1e-9))
+    times = [(first + (last - first) * k // count) * 1e-9 for k in range(count + 1)]
+    return WaypointSpline(tuple(times), tuple(motion.sample(t).q for t in times))

@@ -8,14 +8,13 @@ side, effort = applied motor torque).
 """
 from __future__ import annotations
 
-import bisect
 import enum
 import math
 from dataclasses import dataclass
 
-from compliant_damping.control.sample import JointSample, Reference
+from compliant_damping.control.sample import JointSample
 
-__all__ = ["Rejection", "StateDecoder", "encode_states", "pick_values", "ReferenceSchedule", "Stamp",
+__all__ = ["Rejection", "StateDecoder", "encode_states", "pick_values", "Stamp",
            "StampOrder", "TickClock"]
 
 
@@ -98,77 +97,6 @@ def pick_values(names, values, wanted):
     if bad:
         return Rejection(f"non-finite value for {', '.join(bad)}")
     return out
-
-
-class ReferenceSchedule:
-    """Link references (q_d, q_d', q_d'') per joint that take effect at their stamp, checked against limits.
-
-    A reference stamped zero (or in the past) applies at the next tick; a future stamp
-    applies from the first tick at or after it, so a scenario can be streamed ahead of time.
-    Each message is checked against the joints' ``safety.Limits`` (``limits``): a speed beyond
-    the link speed limit refuses the whole message; a position outside the position limits is
-    clipped to the nearer limit. Both are counted (``rejected``, ``clipped``) with the last
-    reason (``last_issue``). The message carries no acceleration, so none is checked.
-    """
-
-    def __init__(self, joint_names, limits, max_pending: int = 10000):
-        self._names = list(joint_names)
-        self.limits = list(limits)
-        self._pending: list = []   # sorted (stamp s, sequence, {joint index: ref})
-        self._seq = 0
-        self._max = max_pending
-        self.current = [None] * len(self._names)
-        self.rejected = self.clipped = 0
-        self.last_issue: Rejection | None = None
-
-    def __len__(self) -> int:
-        """Number of references waiting for their stamp."""
-        return len(self._pending)
-
-    def add(self, stamp: float, names, position, velocity) -> Rejection | None:
-        """Queue one message; returns its :class:`Rejection` when refused, else None."""
-        result = self._checked(names, position, velocity)
-        if isinstance(result, Rejection):
-            self.rejected += 1
-            self.last_issue = result
-            return result
-        self._seq += 1
-        bisect.insort(self._pending, (stamp, self._seq, result), key=lambda e: (e[0], e[1]))
-        del self._pending[:-self._max]
-        return None
-
-    def _checked(self, names, position, velocity):
-        pos = pick_values(names, position, self._names)
-        vel = pick_values(names, velocity, self._names) if len(velocity) else [0.0] * len(self._names)
-        for got in (pos, vel):
-            if isinstance(got, Rejection):
-                return got
-        refs = {}
-        for j, (p, v) in enumerate(zip(pos, vel)):
-            if p is None:
-                continue
-            v, lim = 0.0 if v is None else v, self.limits[j]
-            if abs(v) > lim.link_speed:
-                return Rejection(f"{self._names[j]}: reference speed {v:+.4g} rad/s beyond the "
-                                 f"{lim.link_speed} rad/s link speed limit")
-            inside = min(max(p, lim.position_lower), lim.position_upper)
-            if inside != p:
-                self.clipped += 1
-                self.last_issue = Rejection(f"{self._names[j]}: reference position {p:+.4g} rad clipped to {inside} rad")
-            refs[j] = Reference(inside, v, 0.0)
-        return refs or Rejection("no configured joint named")
-
-    def at(self, t: float):
-        """Apply everything due at ``t`` (s); returns ``current`` (None where no reference came yet)."""
-        while self._pending and self._pending[0][0] <= t:
-            for j, ref in self._pending.pop(0)[2].items():
-                self.current[j] = ref
-        return self.current
-
-    def clear(self) -> None:
-        """Forget the current and pending references (after a reset the law holds the measured position)."""
-        self._pending.clear()
-        self.current = [None] * len(self._names)
 
 
 class Stamp(enum.Enum):

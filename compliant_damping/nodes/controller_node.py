@@ -14,9 +14,17 @@ Topics (relative names):
 * ``link_reference`` in (sensor_msgs/JointState: position rad, velocity rad/s per joint name;
   reliable, keep last 1000). ``header.stamp`` is when it takes effect (zero: at once), so a
   scenario can be streamed ahead. Positions outside the position limits are clipped to them;
-  a speed beyond the link speed limit refuses the message (joint_state_codec.ReferenceSchedule,
-  counted in diagnostics). Without one, and after every reset, the reference holds the link
-  position measured on the first tick.
+  a speed beyond the link speed limit refuses the message (reference_schedule.ReferenceSchedule,
+  counted in diagnostics). A sample is held until the next: its acceleration and higher
+  derivatives are zero. Without a reference, and after every reset, the reference holds the
+  link position measured on the first tick.
+* ``link_trajectory`` in (trajectory_msgs/JointTrajectory; reliable, keep last 10): a motion
+  for the joints it names, the rest-to-rest spline through its points' positions at
+  ``header.stamp + time_from_start`` (zero stamp: from arrival), continuous to the fourth
+  derivative, so the tracking laws feed its dynamics forward (trajectory_codec). It takes
+  over from the first point's time; a spline leaving the position or link speed limits, or
+  points that carry velocities, accelerations or efforts, refuse the message (counted like
+  refused samples).
 * ``motor_effort`` out (sensor_msgs/JointState: command names, effort N m; header.stamp = the
   stamp of the joint state answered; reliable, keep last 1000 so a slow recorder loses nothing),
   ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output),
@@ -73,12 +81,14 @@ from rclpy.timer import Timer
 from sensor_msgs.msg import JointState
 from std_msgs.msg import Float64MultiArray
 from std_srvs.srv import Trigger
+from trajectory_msgs.msg import JointTrajectory
 
 from compliant_damping.control import controller, safety
 from compliant_damping.control.sample import Reference, stack_references
 from compliant_damping.control.watchdog import ClockStall, Watchdog, stall_timeout
 from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
+from compliant_damping.io.reference_schedule import ReferenceSchedule
 from compliant_damping.nodes import params, spin, startup
 
 RUNTIME_KEYS = re.compile(r"^(law|watchdog_timeout|gain_ramp_time|[^.]+\.(gains|limits)\.\w+)$")
@@ -87,6 +97,7 @@ SUPERVISE_PERIOD = 0.25  # s of steady time between checks of the clock, the com
 BURST_GAP = 1.0          # s without rejections that ends a burst of rejected messages
 NEWEST_ONLY = QoSProfile(history=HistoryPolicy.KEEP_LAST, depth=1, reliability=ReliabilityPolicy.BEST_EFFORT)
 UNSUPPORTED_SEQUENCE = 2 ** 64 - 1  # rmw's RMW_MESSAGE_INFO_SEQUENCE_NUMBER_UNSUPPORTED
+TRAJECTORY_EXTRAS = ("velocities", "accelerations", "effort")  # point fields a trajectory must leave empty
 
 
 def _ns(stamp) -> int:
@@ -117,7 +128,7 @@ class ControllerNode(LifecycleNode):
         self.bank = controller.build(s)
         self.decoder = codec.StateDecoder(s.joints, s.spring_torque_source == "effort")
         self.ticks = codec.TickClock(1.0 / s.control_rate)
-        self.refs = codec.ReferenceSchedule(s.joint_names, [j.limits for j in s.joints])
+        self.refs = ReferenceSchedule(s.joint_names, [j.limits for j in s.joints])
         self.stamps = codec.StampOrder(s.watchdog_timeout)
         self.sim_time = self.get_parameter("use_sim_time").value
         self._epoch_ns = self.get_clock().now().nanoseconds  # stamp times count from here (float precision)
@@ -140,6 +151,8 @@ class ControllerNode(LifecycleNode):
                           self.create_subscription(JointState, "joint_states", self._on_state, NEWEST_ONLY),
                           self.create_subscription(JointState, "link_reference", self._on_reference,
                                                    QoSProfile(depth=1000)),
+                          self.create_subscription(JointTrajectory, "link_trajectory", self._on_trajectory,
+                                                   QoSProfile(depth=10)),
                           self.create_timer(0.5, self._on_diagnostics, clock=self._steady),
                           self.create_timer(SUPERVISE_PERIOD, self._on_supervise, clock=self._steady),
                           self.create_service(Trigger, "~/stop", self._on_stop),
@@ -264,6 +277,14 @@ class ControllerNode(LifecycleNode):
         rejection = self.refs.add(self._time(_ns(msg.header.stamp)), msg.name, msg.position, msg.velocity)
         if rejection is not None:
             self._rejected("link reference", rejection)
+
+    def _on_trajectory(self, msg):
+        base = _ns(msg.header.stamp) or self.get_clock().now().nanoseconds
+        filled = sorted({f for p in msg.points for f in TRAJECTORY_EXTRAS if len(getattr(p, f))})
+        rejection = self.refs.add_trajectory(msg.joint_names, [self._time(base + _ns(p.time_from_start)) for p in msg.points],
+                                             [list(p.positions) for p in msg.points], filled)
+        if rejection is not None:
+            self._rejected("link trajectory", rejection)
 
     def _on_watchdog(self):
         """Fires after watchdog_timeout without a new joint state (the timer restarts on each);

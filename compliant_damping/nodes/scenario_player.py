@@ -1,8 +1,10 @@
 """``scenario_player``: plays a bundled scenario's link reference to a running controller and
 records the loop, for ``cdamp demo`` (compliant_damping.demo) and by hand.
 
-It configures and activates ``damping_controller`` (lifecycle services), streams the
-reference on ``link_reference`` stamped with the sim time at which each sample applies,
+It configures and activates ``damping_controller`` (lifecycle services), streams set points
+on ``link_reference`` stamped with the sim time at which each sample applies, sends each
+motion once on ``link_trajectory`` as the waypoints of scenarios.streamed (the offline
+simulator given that scenario reproduces the run), and
 records ``joint_states`` and ``motor_effort`` until the sim time reaches the scenario's
 duration, deactivates the controller and writes the series to an ``.npz`` file:
 ``t, q, dq, theta, dtheta, tau_s`` (states, one row per tick, columns per joint) and
@@ -38,11 +40,12 @@ import time
 import numpy as np
 import rclpy
 import rclpy.utilities
-from builtin_interfaces.msg import Time
+from builtin_interfaces.msg import Duration, Time
 from lifecycle_msgs.msg import Transition
 from lifecycle_msgs.srv import ChangeState
 from rclpy.qos import QoSProfile
 from sensor_msgs.msg import JointState
+from trajectory_msgs.msg import JointTrajectory, JointTrajectoryPoint
 
 from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
@@ -51,6 +54,22 @@ from compliant_damping.sim import scenarios
 
 def _ns(stamp) -> int:
     return stamp.sec * 1_000_000_000 + stamp.nanosec
+
+
+def _time_msg(ns: int) -> Time:
+    return Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
+
+
+def _trajectory_message(joint: str, motion) -> JointTrajectory:
+    """One joint's motion (references.WaypointSpline, knots on whole ns) as a trajectory message
+    stamped with its first knot."""
+    knots = [round(t * 1e9) for t in motion.times]
+    points = [JointTrajectoryPoint(positions=[float(p)], time_from_start=Duration(sec=(k - knots[0]) // 1_000_000_000,
+                                                                                  nanosec=(k - knots[0]) % 1_000_000_000))
+              for k, p in zip(knots, motion.positions)]
+    msg = JointTrajectory(joint_names=[joint], points=points)
+    msg.header.stamp = _time_msg(knots[0])
+    return msg
 
 
 class ScenarioPlayer:
@@ -62,7 +81,7 @@ class ScenarioPlayer:
     def __init__(self, node, scenario, ctrl_setup, sim_setup, lead: int, ticks: int):
         if lead < 1:
             raise ValueError(f"lead: need at least 1 reference sample ahead (got {lead})")
-        self.node, self.scenario, self.lead, self.ticks = node, scenario, lead, ticks
+        self.node, self.scenario, self.lead, self.ticks = node, scenarios.streamed(scenario), lead, ticks
         self.joints = ctrl_setup.joint_names
         self.commands = [j.command for j in ctrl_setup.joints]
         self.decoder = codec.StateDecoder(ctrl_setup.joints, spring_torque_from_effort=False)
@@ -71,20 +90,32 @@ class ScenarioPlayer:
         self.sent = 0                       # reference ticks published so far
         qos = QoSProfile(depth=1000)
         self.reference = node.create_publisher(JointState, "link_reference", qos)
+        self.trajectory = node.create_publisher(JointTrajectory, "link_trajectory", QoSProfile(depth=10))
+        self.motions = {j: r for j, r in zip(self.joints, self.scenario.references) if not r.set_points}
+        early = [j for j, r in self.motions.items() if r.times[0] <= 0.0]
+        if early:
+            raise ValueError(f"scenario: the motion of {', '.join(early)} starts at 0 s; a streamed motion starts "
+                             "after the first tick (its stamp says when)")
         self.joint_input = node.create_publisher(JointState, config.PACED_EFFORT, qos)
         node.create_subscription(JointState, "joint_states", self._on_state, qos)
         node.create_subscription(JointState, "motor_effort", self._on_effort, qos)
 
     def publish_through(self, tick: int) -> None:
         """Publish reference samples up to ``tick + lead`` (never past the run's last tick, after which the last sample holds)."""
+        if self.sent == 0:
+            for joint, motion in self.motions.items():
+                self.trajectory.publish(_trajectory_message(joint, motion))
         last = min(tick + self.lead, self.ticks)
         while self.sent <= last:
             t = self.sent * self.period_ns * 1e-9
-            samples = [r.sample(t) for r in self.scenario.references]
-            msg = JointState(name=self.joints, position=[s[0] for s in samples], velocity=[s[1] for s in samples])
-            ns = self.sent * self.period_ns
-            msg.header.stamp = Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
-            self.reference.publish(msg)
+            # a moving joint's samples stop where its trajectory takes over
+            held = [(j, r.sample(t)) for j, r in zip(self.joints, self.scenario.references)
+                    if r.set_points or t < r.times[0]]
+            if held:
+                msg = JointState(name=[j for j, _ in held], position=[s.q for _, s in held],
+                                 velocity=[s.dq for _, s in held])
+                msg.header.stamp = _time_msg(self.sent * self.period_ns)
+                self.reference.publish(msg)
             self.sent += 1
 
     def _on_state(self, msg):
@@ -140,14 +171,19 @@ def play(node, args) -> int:
     sim_setup = config.sim_setup(config.node_parameters(doc, config.SIM_NODE))
     scenario = scenarios.make(args.scenario, sim_setup.joints)
     ticks = round((args.duration or scenario.duration) * sim_setup.state_rate)
-    player = ScenarioPlayer(node, scenario, ctrl_setup, sim_setup, args.lead, ticks)
-    deadline = time.monotonic() + args.timeout
     log = node.get_logger()
+    try:
+        player = ScenarioPlayer(node, scenario, ctrl_setup, sim_setup, args.lead, ticks)
+    except ValueError as err:
+        log.error(f"cannot play {args.scenario} over ROS: {err}")
+        return 2
+    deadline = time.monotonic() + args.timeout
     if not transition(node, Transition.TRANSITION_CONFIGURE, deadline):
         log.error("could not configure the controller")
         return 1
-    if not spin_until(node, lambda: player.reference.get_subscription_count() > 0, deadline):
-        log.error("the controller does not listen on link_reference")
+    listening = lambda: min(player.reference.get_subscription_count(), player.trajectory.get_subscription_count()) > 0  # noqa: E731
+    if not spin_until(node, listening, deadline):
+        log.error("the controller does not listen on link_reference and link_trajectory")
         return 1
     heard = lambda: 0 in player.states and node.count_publishers("motor_effort") > 0  # noqa: E731
     if not spin_until(node, heard, deadline):  # the joint repeats its first state until answered

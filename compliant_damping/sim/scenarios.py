@@ -22,6 +22,9 @@ for any parameter file:
                       frame at 0.05 s and moves up at ``landing_speed`` until ``travel`` past
                       touchdown, then stays. A moving floor gives every law the same landing
                       speed, as a drop test rig does, so their impact torques compare fairly.
+
+Over ROS a motion goes as a trajectory through waypoints (:func:`streamed`): the spline through
+its positions every STREAM_SPACING s, which the offline simulator is given to reproduce the run.
 """
 from __future__ import annotations
 
@@ -31,17 +34,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from compliant_damping.control.references import Constant, Cruise, RestToRest, Sinusoid, Step
+from compliant_damping.control.references import Constant, Cruise, RestToRest, Sinusoid, Step, spline_through
 from compliant_damping.control.sample import stack_references
 from compliant_damping.dynamics.links import IndependentLinks
 
-__all__ = ["SCENARIOS", "Scenario", "make", "rest_state"]
+__all__ = ["SCENARIOS", "STREAM_SPACING", "Scenario", "make", "rest_state", "streamed"]
 
 SCENARIOS = ("free_oscillation", "setpoint_step", "end_stop_impact", "external_impulse", "track_sinusoid",
              "track_move", "foot_landing")
 TRACKING = ("track_sinusoid", "track_move")  # scenarios whose metrics include the tracking error
 LANDING_START = 0.05  # s: the floor starts to rise
 SPEED_UP = 0.3  # s: end_stop_impact's speed ramp, gentle so the reference's feed-forward stays small
+STREAM_SPACING = 0.005  # s between the waypoints of a motion streamed over ROS (:func:`streamed`)
 
 
 @dataclass(frozen=True)
@@ -208,3 +212,14 @@ def make(name: str, sim_joints, *, joints=None, links=None, floor=None, step: fl
     rows = [[i, 0.2, 0.2 + impulse_width, impulse / impulse_width] for i in acting]
     return Scenario(name, 1.5, initial, hold, np.array(rows, dtype=float).reshape(-1, 4), contacts=contacts,
                     acting=acting)
+
+
+def streamed(scenario: Scenario, spacing: float = STREAM_SPACING) -> Scenario:
+    """``scenario`` as it goes over ROS: each motion replaced by the spline through its positions at
+    knots ``spacing`` s apart (references.spline_through; the player sends those waypoints on
+    ``link_trajectory``), set points unchanged.
+
+    Raises ValueError, with the reason, for a motion that does not start and end at rest.
+    """
+    refs = tuple(r if r.set_points else spline_through(r, spacing) for r in scenario.references)
+    return dataclasses.replace(scenario, references=refs)
