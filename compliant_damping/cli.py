@@ -10,14 +10,13 @@ import os
 import sys
 from dataclasses import MISSING
 
-from compliant_damping import analysis_commands
+from compliant_damping import analysis_commands, demo
 from compliant_damping.command_files import is_robot, load_files
-from compliant_damping.control import controller
 from compliant_damping.control.laws import LAW_NAMES
 from compliant_damping.io import config, config_check, parameter_keys
 from compliant_damping.io.metrics import joint_metrics, to_dicts
 from compliant_damping.io.robot_section import describes_robot
-from compliant_damping.sim import robot_sim, scenarios, simulate
+from compliant_damping.sim import offline, robot_sim, scenarios
 
 
 def _write_csv(path, result):
@@ -32,20 +31,14 @@ def _write_csv(path, result):
 
 def cmd_simulate(args) -> int:
     ctrl, sim = load_files(args)
-    dt = 1.0 / ctrl.control_rate
     summary_extra = {}
-    if is_robot(ctrl, sim):
-        scenario = scenarios.make(args.scenario, sim.joints, joints=args.joints, links=sim.links, floor=sim.contact)
-        result = robot_sim.simulate_robot(robot_sim.robot_plant(sim, scenario), controller.robot(ctrl), scenario,
-                                          args.duration, control_dt=dt, substeps=sim.substeps,
-                                          sensors=[j.sensor for j in sim.joints], seed=sim.seed)
+    robot = is_robot(ctrl, sim)
+    scenario = scenarios.make(args.scenario, sim.joints, joints=args.joints, links=sim.links, floor=sim.contact)
+    result = offline.run_scenario(ctrl, sim, scenario, robot, args.duration)
+    if robot:
         landings = [robot_sim.touchdown(result, sim.links, c) for c in scenario.contacts]
         summary_extra["touchdowns"] = [None if d is None else {"frame": c.frame, **dataclasses.asdict(d)}
                                        for c, d in zip(scenario.contacts, landings)]
-    else:
-        scenario = scenarios.make(args.scenario, sim.joints, joints=args.joints)
-        result = simulate.simulate(sim.joints, controller.bank(ctrl), scenario, args.duration,
-                                   control_dt=dt, substeps=sim.substeps, seed=sim.seed)
     summary = {"law": ctrl.law, "scenario": scenario.name, "sim_time": float(len(result.t) * result.control_dt),
                "wall_time": result.wall_time, "joints": to_dicts(joint_metrics(result, scenario)), **summary_extra}
     for name, fault in zip(result.joint_names, result.faults):
@@ -68,15 +61,16 @@ def cmd_simulate(args) -> int:
 
 
 def cmd_demo(args) -> int:
-    """End-stop impact over ROS (lock step) with three laws, compared with the offline simulator."""
-    from compliant_damping import demo
+    """The bench knee's end-stop impact and the leg's landing over ROS (lock step) with three laws,
+    each compared with the offline simulator."""
     try:
-        summary = demo.run(args.config, args.out)
+        summary = demo.run(args.config, args.out, only=args.part)
     except demo.DemoError as err:
         print(f"cdamp demo: {err}", file=sys.stderr)
         return 1
     print(demo.table(summary))
-    print(f"wrote {args.out}/summary.json and {summary['plot']} in {summary['wall_time']:.1f} s")
+    plots = ", ".join(part["plot"] for part in summary["parts"].values())
+    print(f"wrote {args.out}/summary.json and {plots} in {summary['wall_time']:.1f} s")
     return 0
 
 
@@ -165,9 +159,11 @@ def parser() -> argparse.ArgumentParser:
     s.add_argument("--csv", help="write the time series to this CSV file")
     s.add_argument("--json", action="store_true", help="print the metrics as JSON")
     s.set_defaults(run=cmd_simulate)
-    d = sub.add_parser("demo", help="end-stop impact over ROS with three laws, compared with the offline simulator")
-    d.add_argument("--config", help="parameter file (default: bundled one_joint.yaml)")
-    d.add_argument("--out", default="results/demo", help="folder for summary.json, impact.png and logs")
+    d = sub.add_parser("demo", help="end-stop impact and leg landing over ROS with three laws, compared with the "
+                                    "offline simulator")
+    d.add_argument("--config", help="parameter file of the impact part (default: bundled one_joint.yaml)")
+    d.add_argument("--part", choices=demo.PART_NAMES, help="run one part only (default: both)")
+    d.add_argument("--out", default="results/demo", help="folder for summary.json, the plots and logs")
     d.set_defaults(run=cmd_demo)
     k = sub.add_parser("keys", help="list every parameter key with type, default, unit and meaning")
     k.add_argument("--config", help="parameter file whose joint names to use (default: bundled)")

@@ -20,6 +20,7 @@ from compliant_damping import cli
 from compliant_damping.io import config
 from compliant_damping.io.config import CONTROLLER_NODE, SIM_NODE, ConfigError
 from compliant_damping.dynamics.urdf_chain import UrdfChain, bundled_urdf
+from compliant_damping.sim import scenarios
 
 REPO_URDF = Path(__file__).resolve().parent.parent / "urdf"  # the bundled files, found without the package
 
@@ -315,3 +316,16 @@ def test_the_setups_links_are_the_urdf_chain_of_the_file(tmp_path, pin):
             np.testing.assert_allclose(links.mass_matrix(q), pin.crba(model, data, q), rtol=0, atol=1e-12)
             np.testing.assert_allclose(links.mass_matrix(q), textbook, rtol=0, atol=1e-12)
     assert ctrl.urdf_source == sim.urdf_source == str(bundled_urdf("two_link_arm.urdf"))
+
+
+def test_a_rising_floor_reads_back_from_its_settings(pin):
+    """foot_landing's floor (0.35 m/s from 0.05 s) written as contact.* settings (config.contact_parameters)
+    gives the simulated robot the same PlaneContact; a negative rise time is refused with its key."""
+    ctrl, sim = config.load(config.bundled("compliant_leg.yaml"))
+    floor = scenarios.make("foot_landing", sim.joints, links=sim.links, floor=sim.contact).contacts[0]
+    assert floor.speed == 0.35 and floor.start_time == 0.05 and floor.rise_time > 0.0
+    params = {**config.layered_parameters([config.bundled("compliant_leg.yaml")], SIM_NODE),
+              **config.contact_parameters(floor)}
+    assert config.sim_setup(params).contact == floor
+    problems = config.sim_check({**params, "contact.rise_time": -1.0}).problems
+    assert [p.key for p in problems] == ["contact.rise_time"]

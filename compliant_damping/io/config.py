@@ -52,7 +52,7 @@ from compliant_damping.sim.sensors import SensorParams
 
 __all__ = ["CONTROLLER_NODE", "SIM_NODE", "PACED_EFFORT", "ConfigError", "YamlSyntaxError", "Problems", "Checked",
            "build", "ControllerJoint", "ControllerSetup", "controller_check", "controller_setup", "SimJoint",
-           "SimSetup", "sim_check", "sim_setup", "load", "load_controller",
+           "SimSetup", "sim_check", "sim_setup", "load", "load_controller", "contact_parameters",
            # the node names are parameter_keys'; reading, sections and layering parameter_files';
            # callers find them here too
            "bundled", "flatten", "layered_parameters", "node_parameters", "read", "share_dir"]
@@ -328,7 +328,15 @@ def _contact(top: dict, links) -> PlaneContact | None:
     if frame not in links.frame_names:
         raise ConfigError("contact.frame", f"no frame {frame!r} in {links.source}")
     return PlaneContact(frame, height=top["contact.height"], stiffness=top["contact.stiffness"],
-                        damping=top["contact.damping"])
+                        damping=top["contact.damping"], speed=top["contact.rise_speed"],
+                        start_time=top["contact.rise_start"], rise_time=top["contact.rise_time"])
+
+
+def contact_parameters(contact: PlaneContact) -> dict:
+    """The ``contact.*`` settings of a floor (the inverse of the simulated robot's reading of them)."""
+    return {"contact.frame": contact.frame, "contact.height": contact.height, "contact.stiffness": contact.stiffness,
+            "contact.damping": contact.damping, "contact.rise_speed": contact.speed,
+            "contact.rise_start": contact.start_time, "contact.rise_time": contact.rise_time}
 
 
 def sim_setup(params: dict) -> SimSetup:

@@ -82,6 +82,11 @@ SIM_SETTINGS = (
     Setting("contact.height", float, 0.0, "m, height of the floor plane in the URDF world", check="finite"),
     Setting("contact.stiffness", float, 1.0e5, "N/m, floor contact stiffness", check="positive"),
     Setting("contact.damping", float, 500.0, "N s/m, floor contact damping (push only)", check="nonnegative"),
+    Setting("contact.rise_speed", float, 0.0, "m/s, floor speed along its normal while it rises (a drop test rig)",
+            check="finite"),
+    Setting("contact.rise_start", float, 0.0, "s of plant time when the floor starts to rise", check="nonnegative"),
+    Setting("contact.rise_time", float, 0.0, "s the floor rises for, then rests (0: it stays at contact.height)",
+            check="nonnegative"),
 )
 SIM_JOINT_SETTINGS = (
     Setting("initial_position", float, 0.0, "rad, link at rest there, spring holding gravity", check="finite"),

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["BODE_FORMATS", "bode_format", "plot_impedance", "plot_runs", "plot_tuning"]
+__all__ = ["BODE_FORMATS", "bode_format", "plot_impedance", "plot_per_joint", "plot_runs", "plot_tuning"]
 
 BODE_FORMATS = ("png", "svg")
 
@@ -48,6 +48,34 @@ def plot_runs(runs: dict, path, title: str | None = None) -> Path:
         ax.grid(True, alpha=0.3)
     ax_q.legend(loc="best", fontsize="small")
     fig.suptitle(title or ", ".join(r.source for r in runs.values()))
+    fig.tight_layout()
+    fig.savefig(path, dpi=100)
+    plt.close(fig)
+    return Path(path)
+
+
+def plot_per_joint(runs: dict, path, title: str) -> Path:
+    """Link position and motor torque against time, a column per joint, one line per run in each.
+
+    runs: ``{label: runs.Run}`` over the same joints; path: PNG file to write (its folder must
+    exist). Returns the path.
+    """
+    plt = _pyplot()
+    joints = next(iter(runs.values())).joint_names
+    fig, axes = plt.subplots(2, len(joints), sharex=True, squeeze=False, figsize=(4.0 * len(joints) + 1.0, 5.5))
+    for j, joint in enumerate(joints):
+        ax_q, ax_tau = axes[:, j]
+        for run_label, run in runs.items():
+            ax_q.plot(run.t, run.q[:, j], label=run_label)
+            ax_tau.step(run.t_cmd, run.tau_m[:, j], where="post", label=run_label)
+        ax_q.set_title(joint)
+        ax_tau.set_xlabel("time (s)")
+        for ax in (ax_q, ax_tau):
+            ax.grid(True, alpha=0.3)
+    axes[0, 0].set_ylabel("link position q (rad)")
+    axes[1, 0].set_ylabel("motor torque (N m)")
+    axes[0, 0].legend(loc="best", fontsize="small")
+    fig.suptitle(title)
     fig.tight_layout()
     fig.savefig(path, dpi=100)
     plt.close(fig)

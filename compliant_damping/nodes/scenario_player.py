@@ -169,7 +169,7 @@ def play(node, args) -> int:
     doc = config.read(args.config or config.bundled())
     ctrl_setup = config.controller_setup(config.node_parameters(doc, config.CONTROLLER_NODE))
     sim_setup = config.sim_setup(config.node_parameters(doc, config.SIM_NODE))
-    scenario = scenarios.make(args.scenario, sim_setup.joints)
+    scenario = scenarios.make(args.scenario, sim_setup.joints, links=sim_setup.links, floor=sim_setup.contact)
     ticks = round((args.duration or scenario.duration) * sim_setup.state_rate)
     log = node.get_logger()
     try:
