@@ -125,3 +125,47 @@ def test_documented_impact_numbers():
                          / _peak_rate("link_damping", scenario, duration=duration))
     assert ratios[0.5] == pytest.approx(0.5, abs=0.05)
     assert ratios[1.5] > 0.9
+
+
+def _jump_per_speed(law, kv=None):
+    """The torque jump per unit step in link speed (N m per rad/s) on the bundled knee at q = 0, worked
+    out by hand from the laws of the design notes (section 4). A step in q' leaves q, theta, theta'
+    and the damper state x unchanged; it moves
+    * link_damping: u1 = -D_l q' by -D_l, eta = theta - u1/K with it (so u2 by -K_eta D_l/K), and the
+      model jerk q'''_m = (K (theta' - q') - g'(q) q')/M by -(K + g')/M (so (B/K) u1'' by
+      B D_l (K + g')/(K M)): dtau = -D_l (1 + K_eta/K - B (K + g')/(K M));
+    * decoupled_damper (first order): x'' = (k_v/D_v)(q' - x') by k_v/D_v (so (B/K) u1'' by
+      B k_v^2/(K D_v)) and u1' = -k_v (q' - x') by -k_v (so eta' by k_v/K, u2 by -D_eta k_v/K):
+      dtau = (k_v/K)(B k_v/D_v - D_eta), the two terms of opposite sign.
+    """
+    m, g = JOINT.model, JOINT.gains
+    k, b = m.spring_stiffness, m.motor_inertia
+    if law == "link_damping":
+        return -g.link_damping * (1.0 + g.motor_stiffness / k - b * (k + m.gravity_slope(0.0)) / (k * m.link_inertia))
+    kv = g.decoupling_stiffness if kv is None else kv
+    return kv / k * (b * kv / g.link_damping - g.motor_damping)
+
+
+def test_torque_jump_at_a_link_speed_step_follows_the_signed_formulas():
+    """A 0.02 N m s impulse over 0.1 ms (a step of J/M = 0.08 rad/s in link speed at 0.2 s, impulse-
+    momentum theorem) on the bundled knee at rest, limits raised: the command's change over that
+    tick equals the hand-worked jump (_jump_per_speed) times the speed step within 5 % (measured
+    0.974 for link_damping, -9.77 N m per rad/s, and 1.046 for decoupled_damper, -3.81; the rest is
+    the millisecond of motion inside the tick). The formulas say where a stiffer decoupling spring
+    overtakes direct damping: |jump| equal at k_v = 671 N m/rad, where the end-stop impacts of
+    test_documented_impact_numbers cross between 600 and 700 N m/rad."""
+    scenario = scenarios.make("external_impulse", SIM.joints, impulse=0.02, impulse_width=1e-4)
+    tick = round(0.2 * CTRL.control_rate)
+    for law in ("link_damping", "decoupled_damper"):
+        run, _, ctrl = _run(law, scenario, limits=RAISED, duration=0.3)
+        step = run.dq[tick + 1, 0] - run.dq[tick, 0]
+        assert step == pytest.approx(0.02 / SIM_JOINT.plant.link_inertia, rel=0.01)
+        jump = run.tau_m[tick + 1, 0] - run.tau_m[tick, 0]
+        print(f"{law}: torque jump {jump:.4f} N m for a {step:.4f} rad/s step; formula {_jump_per_speed(law) * step:.4f}")
+        assert jump == pytest.approx(_jump_per_speed(law) * step, rel=0.05)
+    m, g = JOINT.model, JOINT.gains
+    a = m.motor_inertia / (m.spring_stiffness * g.link_damping)  # |jump| = a k_v^2 - (D_eta/K) k_v, beyond the zero
+    crossing = (g.motor_damping / m.spring_stiffness + np.sqrt((g.motor_damping / m.spring_stiffness) ** 2
+                                                                - 4.0 * a * _jump_per_speed("link_damping"))) / (2.0 * a)
+    assert _jump_per_speed("decoupled_damper", crossing) == pytest.approx(-_jump_per_speed("link_damping"))
+    assert 600.0 < crossing < 700.0 and round(crossing) == 671
