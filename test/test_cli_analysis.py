@@ -96,3 +96,18 @@ def test_tune_marks_unstable_points_and_never_recommends_one():
     last_stable = max(p["decoupling_stiffness"] for p in points if p["stable"] and p["decoupling_stiffness"] < first)
     assert last_stable < out["stability_boundary_decoupling_stiffness"] <= first
     assert out["recommended_decoupling_stiffness"] not in [p["decoupling_stiffness"] for p in bad]
+
+
+def test_the_documented_damping_ratios_and_the_tuned_spring_of_the_bundled_knee():
+    """The numbers README.md and config/one_joint.yaml state: least-damped mode of the continuous
+    loop 0.44 (link_damping), 0.41 (decoupled_damper), 0.24 (motor_pd), each within 0.01 of the
+    sampled loop's at 1 kHz; `cdamp tune` (default sweep) recommends about the file's k_v = 200 N m/rad
+    as the softest that keeps the sampled damping ratio at 0.4."""
+    documented = {"link_damping": 0.44, "decoupled_damper": 0.41, "motor_pd": 0.24}
+    for law, zeta in documented.items():
+        out = _cdamp("analyze", "--law", law, "--json")
+        continuous = min(m["damping_ratio"] for m in out["modes"])
+        sampled = min(m["damping_ratio"] for m in out["sampled"]["modes"])
+        assert continuous == pytest.approx(zeta, abs=0.005) and sampled == pytest.approx(continuous, abs=0.011)
+    tuned = _cdamp("tune", "--json")["recommended_decoupling_stiffness"]
+    assert tuned == pytest.approx(200.0, rel=0.01)
