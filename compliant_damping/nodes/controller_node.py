@@ -64,12 +64,11 @@ gains and limits.
 from __future__ import annotations
 
 import math
-import re
 import sys
 import time
 
 from builtin_interfaces.msg import Time
-from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus, KeyValue
+from diagnostic_msgs.msg import DiagnosticArray
 from rclpy.clock import Clock, ClockType
 from rclpy.lifecycle import Node as LifecycleNode
 from rclpy.lifecycle import TransitionCallbackReturn
@@ -89,9 +88,10 @@ from compliant_damping.control.watchdog import ClockStall, Watchdog, stall_timeo
 from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
 from compliant_damping.io.reference_schedule import ReferenceSchedule
+from compliant_damping.io.runtime_changes import runtime_refusal
 from compliant_damping.nodes import params, spin, startup
+from compliant_damping.nodes.diagnostics import joint_statuses
 
-RUNTIME_KEYS = re.compile(r"^(law|watchdog_timeout|gain_ramp_time|[^.]+\.(gains|limits)\.\w+)$")
 WAITING_REPORT = 1.0     # s of steady time active without a joint state before it is reported
 SUPERVISE_PERIOD = 0.25  # s of steady time between checks of the clock, the command topic and the logs
 BURST_GAP = 1.0          # s without rejections that ends a burst of rejected messages
@@ -341,25 +341,15 @@ class ControllerNode(LifecycleNode):
     def _on_diagnostics(self):
         waiting = self.active and not self.watchdog.armed
         mode = "waiting for joint states" if waiting else "active" if self.active else "inactive"
-        rate = self.ticks.rate()
-        msg = DiagnosticArray()
+        rejection, issue = self._last_rejection, self.refs.last_issue
+        counters = {"tick_rate_hz": f"{self.ticks.rate():.1f}", "late_ticks": str(self.ticks.late),
+                    "rejected_messages": str(self.decoder.rejected + self.stamp_rejected),
+                    "dropped_messages": str(self.dropped), "last_rejection": rejection.reason if rejection else "",
+                    "reference_rejected": str(self.refs.rejected), "reference_clipped": str(self.refs.clipped),
+                    "last_reference_issue": issue.reason if issue else ""}
+        msg = DiagnosticArray(status=joint_statuses(self.get_name(), self.setup.joint_names, self.bank.faults,
+                                                    self.bank.law_name, mode, waiting, counters))
         msg.header.stamp = self.get_clock().now().to_msg()
-        law = self.bank.law_name
-        for j, fault in zip(self.setup.joints, self.bank.faults):
-            rejection = self._last_rejection
-            values = {"law": law, "mode": "safe" if fault else mode,
-                      "fault_code": fault.code.value if fault else "", "fault": fault.reason if fault else "",
-                      "tick_rate_hz": f"{rate:.1f}", "late_ticks": str(self.ticks.late),
-                      "rejected_messages": str(self.decoder.rejected + self.stamp_rejected),
-                      "dropped_messages": str(self.dropped),
-                      "last_rejection": rejection.reason if rejection else "",
-                      "reference_rejected": str(self.refs.rejected), "reference_clipped": str(self.refs.clipped),
-                      "last_reference_issue": self.refs.last_issue.reason if self.refs.last_issue else ""}
-            msg.status.append(DiagnosticStatus(
-                level=DiagnosticStatus.ERROR if fault else DiagnosticStatus.WARN if waiting else DiagnosticStatus.OK,
-                name=f"{self.get_name()}: {j.name}", hardware_id=j.name,
-                message=str(fault) if fault else f"{mode}, law {law}",
-                values=[KeyValue(key=k, value=v) for k, v in values.items()]))
         self._pub_diag.publish(msg)
 
     def _on_stop(self, request, response):
@@ -401,19 +391,9 @@ class ControllerNode(LifecycleNode):
             return str(err)
         if self.bank is None:
             return None  # read again on configure
-        new = params.changed(self, self._keys, changes)
-        fixed = sorted(k for k in new if not RUNTIME_KEYS.match(k))
-        if fixed:
-            return f"{fixed[0]}: changes only while unconfigured (cleanup, set, configure)"
-        if self.setup.lock_gains and any(k == "law" or ".gains." in k for k in new):
-            return "lock_gains is true: law and gains are fixed at run time"
-        relaxed = [f"{j.name}.limits.{name}" for old, j in zip(self.setup.joints, setup.joints)
-                   for name in safety.relaxations(old.limits, j.limits)]
-        if setup.watchdog_timeout > self.setup.watchdog_timeout:
-            relaxed.append("watchdog_timeout")
-        if relaxed:
-            return (f"{relaxed[0]}: limits only tighten at run time; raising one needs an unconfigured node "
-                    "(deactivate, cleanup, set, configure)")
+        refusal = runtime_refusal(self.setup, setup, params.changed(self, self._keys, changes))
+        if refusal is not None:
+            return refusal.reason
         self._apply(setup)
         return None
 
