@@ -12,6 +12,12 @@ Launch arguments:
     (e.g. one of ``config/laws/*.yaml``).
 ``law`` (default: the files' law)
     Law name overriding the files.
+``urdf`` (default: none, keep the robot the files name)
+    A URDF file (path, or ``package://PACKAGE/PATH``). The launch reads it and hands its text
+    to the node as the ``robot_description`` parameter, the ROS convention; a ``nominal_urdf``
+    (or ``robot_description``) of the files is dropped, since the node takes at most one of them.
+    The joints of ``joint_names`` must then be revolute joints of this URDF, and the files may
+    give only the drive of each joint (no link keys: the URDF gives the links).
 ``namespace`` (default: none)
     Namespace of the node and of its relative topics (``joint_states``, ``motor_effort``, ...).
 ``use_sim_time`` (default ``false``)
@@ -26,6 +32,11 @@ Launch arguments:
 
     Keep the default on hardware. ``deactivate`` ramps the torque to zero and stays inactive
     (auto activation acts once, on the first configure only).
+
+Before the node starts, the files with ``law`` and ``urdf`` applied are checked as the node
+will check them (compliant_damping.io.config.launch_parameters): a bad key, a URDF file that
+cannot be read, a URDF that does not parse or lacks a joint of ``joint_names`` stop the launch
+with ``damping_controller.KEY: reason`` (``urdf: reason`` for a file that cannot be read).
 
 The file's section is handed to the node under its full name, so the parameters apply in any
 namespace. The executable comes from the ament index (``lib/compliant_damping/damping_controller``):
@@ -56,10 +67,8 @@ def _controller(context):
     def arg(name):
         return LaunchConfiguration(name).perform(context)
     files = [arg("params_file")] + ([arg("layer_file")] if arg("layer_file") else [])
-    params = config.layered_parameters(files, config.CONTROLLER_NODE)
-    if arg("law"):
-        params["law"] = arg("law")
-    config.controller_setup(params)  # refuse a bad file here, with the key and the reason
+    # refuse a bad file or URDF here, before the node starts, with the key and the reason
+    params, _ = config.launch_parameters(files, config.CONTROLLER_NODE, law=arg("law"), urdf=arg("urdf"))
     params["use_sim_time"] = arg("use_sim_time") == "true"
     node = LifecycleNode(package=PACKAGE, executable="damping_controller", name=config.CONTROLLER_NODE,
                          namespace=arg("namespace"), parameters=[params], output="screen")
@@ -76,6 +85,8 @@ def generate_launch_description():
         DeclareLaunchArgument("layer_file", default_value="",
                               description="optional file layered over params_file, key by key"),
         DeclareLaunchArgument("law", default_value="", description="law overriding the files' law (empty: keep)"),
+        DeclareLaunchArgument("urdf", default_value="",
+                              description="URDF file handed to the node as robot_description (empty: keep the files')"),
         DeclareLaunchArgument("namespace", default_value="", description="namespace of the node and its topics"),
         DeclareLaunchArgument("use_sim_time", default_value="false", choices=["true", "false"],
                               description="run on /clock (lock-step simulation)"),

@@ -47,12 +47,13 @@ from compliant_damping.io.parameter_files import (ConfigError, YamlSyntaxError, 
 from compliant_damping.io.parameter_keys import (CONTROLLER_JOINT_SETTINGS, CONTROLLER_NODE, CONTROLLER_SETTINGS,
                                                  SIM_JOINT_SETTINGS, SIM_NODE, SIM_SETTINGS, Setting, dataclass_keys,
                                                  unknown_key_errors)
-from compliant_damping.io.robot_section import URDF_KEYS, build_links, describes_robot, robot_source
+from compliant_damping.io.robot_section import (URDF_ARGUMENT, URDF_KEYS, build_links, describes_robot, robot_source,
+                                                with_urdf_file)
 from compliant_damping.sim.sensors import SensorParams
 
 __all__ = ["CONTROLLER_NODE", "SIM_NODE", "PACED_EFFORT", "ConfigError", "YamlSyntaxError", "Problems", "Checked",
            "build", "ControllerJoint", "ControllerSetup", "controller_check", "controller_setup", "SimJoint",
-           "SimSetup", "sim_check", "sim_setup", "load", "load_controller", "contact_parameters",
+           "SimSetup", "sim_check", "sim_setup", "load", "load_controller", "contact_parameters", "launch_parameters",
            # the node names are parameter_keys'; reading, sections and layering parameter_files';
            # callers find them here too
            "bundled", "flatten", "layered_parameters", "node_parameters", "read", "share_dir"]
@@ -342,6 +343,49 @@ def contact_parameters(contact: PlaneContact) -> dict:
 def sim_setup(params: dict) -> SimSetup:
     """Validated simulated-joint setup from flat (dotted) parameters; raises the first ConfigError."""
     return _setup(sim_check(params))
+
+
+def launch_parameters(files, node: str, law: str = "", urdf: str = ""):
+    """What a launch file hands to ``node``: its files layered, ``law`` and ``urdf`` applied, checked.
+
+    Parameters
+    ----------
+    files : sequence of path
+        Parameter files, layered in order (:func:`layered_parameters`).
+    node : str
+        CONTROLLER_NODE or SIM_NODE.
+    law : str
+        Controller only: a law overriding the files' (empty: keep).
+    urdf : str
+        A URDF file (path or ``package://``) handed to the node as ``robot_description``, replacing
+        the robot the files name (robot_section.with_urdf_file); empty: keep what the files say.
+
+    Returns
+    -------
+    (dict, ControllerSetup or SimSetup)
+        The flat parameters for the node and their validated setup.
+
+    Raises
+    ------
+    ConfigError
+        Before any node starts: a setup problem keyed ``NODE.KEY`` (as ``cdamp check-config``
+        prints it), a robot_description from ``urdf`` that does not suit the joints with the file
+        named in the reason, a ``urdf`` file that cannot be read keyed ``urdf``, a YAML error
+        keyed ``FILE:LINE:COL``.
+    """
+    params = layered_parameters(files, node)
+    if law:
+        params["law"] = law
+    if urdf:
+        params = with_urdf_file(params, node, urdf)
+    try:
+        setup = (controller_setup if node == CONTROLLER_NODE else sim_setup)(params)
+    except ConfigError as err:
+        reason = err.reason
+        if urdf and err.key == URDF_KEYS[node][1]:
+            reason = f"{reason} (robot_description read from {URDF_ARGUMENT}:={urdf})"
+        raise ConfigError(f"{node}.{err.key}", reason) from None
+    return params, setup
 
 
 def load(*paths):

@@ -14,6 +14,9 @@ robot to a node. At most one of the two may be set; with neither, the joints are
 independent pendulum joints and their link parameters are per-joint keys. With a URDF, every
 joint in ``joint_names`` is an elastic revolute joint of it and the link keys
 (model.LINK_KEYS) are refused: the URDF gives the links.
+
+The launch files take a URDF file as the launch argument ``urdf`` and hand its text to the nodes
+as ``robot_description`` (:func:`with_urdf_file`), as ROS passes a robot to a node.
 """
 from __future__ import annotations
 
@@ -23,12 +26,14 @@ from pathlib import Path
 from compliant_damping.dynamics.links import IndependentLinks, RobotModelError
 from compliant_damping.io.parameter_files import ConfigError, share_dir
 
-__all__ = ["URDF_KEYS", "RobotSource", "robot_source", "describes_robot", "resolve_package_uri", "build_links"]
+__all__ = ["URDF_KEYS", "URDF_ARGUMENT", "RobotSource", "robot_source", "describes_robot", "resolve_package_uri",
+           "build_links", "with_urdf_file"]
 
 # The two ways each node section names a URDF: (file key, string key).
 URDF_KEYS = {"damping_controller": ("nominal_urdf", "robot_description"),
              "simulated_joint": ("robot_urdf", "robot_description")}
 PACKAGE_SCHEME = "package://"
+URDF_ARGUMENT = "urdf"  # the launch files' argument: a URDF file handed to the nodes as robot_description
 
 
 @dataclass(frozen=True)
@@ -121,3 +126,32 @@ def build_links(source: RobotSource | None, joint_names, link_params=()):
         return UrdfChain(source.xml, joint_names, source=source.origin)
     except RobotModelError as err:  # the reason alone where it names the key itself (robot_description)
         raise ConfigError(source.key, err.reason if err.key == source.key else str(err)) from None
+
+
+def with_urdf_file(params: dict, node: str, path: str) -> dict:
+    """``node``'s flat parameters with the URDF file ``path`` as ``robot_description``.
+
+    The text of the file replaces whatever robot the parameters named (their file key,
+    ``nominal_urdf`` or ``robot_urdf``, is dropped, as at most one of the two may be set); ``path``
+    is a path or ``package://PACKAGE/PATH``. Whether the URDF suits the joints is not checked here
+    (config.controller_setup / config.sim_setup do that).
+
+    Raises
+    ------
+    ConfigError
+        Naming :data:`URDF_ARGUMENT`: a file that cannot be read or is empty (an empty
+        ``robot_description`` would silently mean the built-in joints).
+    """
+    file = resolve_package_uri(URDF_ARGUMENT, path) if path.startswith(PACKAGE_SCHEME) else Path(path)
+    try:
+        text = file.read_text()
+    except OSError as err:
+        raise ConfigError(URDF_ARGUMENT, f"cannot read the URDF {file} ({err.strerror})") from None
+    except UnicodeDecodeError as err:
+        raise ConfigError(URDF_ARGUMENT, f"{file} is not a text file ({err.reason})") from None
+    if not text.strip():
+        raise ConfigError(URDF_ARGUMENT, f"{file} is empty: a URDF is needed")
+    file_key, text_key = URDF_KEYS[node]
+    out = {k: v for k, v in params.items() if k != file_key}
+    out[text_key] = text
+    return out
