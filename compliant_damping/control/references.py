@@ -14,6 +14,7 @@ Two kinds, which the laws treat differently (laws.check_reference):
 """
 from __future__ import annotations
 
+import bisect
 import math
 from dataclasses import dataclass, field
 
@@ -224,14 +225,16 @@ class WaypointSpline:
 
     A ninth-degree interpolating spline (scipy.interpolate.make_interp_spline, k = 9) with
     derivatives 1 to 4 zero at both ends: continuous up to the fourth derivative everywhere,
-    the joins to rest included.
+    the joins to rest included. It is kept as Taylor coefficients per interval, so a sample (all
+    four derivatives) is one small matrix product, and the extremes are roots of polynomials.
     """
 
     times: tuple
     positions: tuple
     set_points = False
     smoothness = DERIVATIVES
-    _spline: object = field(init=False, repr=False, compare=False)
+    _breaks: np.ndarray = field(init=False, repr=False, compare=False)
+    _taylor: np.ndarray = field(init=False, repr=False, compare=False)
 
     def __post_init__(self):
         t, y = np.asarray(self.times, dtype=float), np.asarray(self.positions, dtype=float)
@@ -242,28 +245,38 @@ class WaypointSpline:
         if not np.all(np.diff(t) > 0.0):
             raise ValueError(f"times: must increase strictly, got {t.tolist()}")
         rest = [(d, 0.0) for d in range(1, DERIVATIVES + 1)]
-        object.__setattr__(self, "_spline", make_interp_spline(t, y, k=2 * DERIVATIVES + 1, bc_type=(rest, rest)))
+        degree = 2 * DERIVATIVES + 1
+        spline = make_interp_spline(t, y, k=degree, bc_type=(rest, rest))
+        # Taylor coefficients of the position at the start of each interval, x^0 first; derivative d
+        # has coefficients a_{j+d} (j+d)!/j! (PPoly.from_spline would go through FITPACK, which
+        # handles degree <= 5 only and crashed on 9 here)
+        position = np.array([spline(t[:-1], nu=m) / math.factorial(m) for m in range(degree + 1)])
+        taylor = np.zeros((DERIVATIVES + 2, degree + 1, len(t) - 1))
+        for d in range(DERIVATIVES + 2):
+            for j in range(degree + 1 - d):
+                taylor[d, j] = position[j + d] * math.factorial(j + d) / math.factorial(j)
+        object.__setattr__(self, "_breaks", t)
+        object.__setattr__(self, "_taylor", taylor)
 
     @property
     def motion_span(self) -> tuple:
         """(first, last) time (s) of the motion; at rest outside it."""
         return self.times[0], self.times[-1]
 
+    def _piece(self, derivative: int) -> PPoly:
+        """The ``derivative``-th derivative as a scipy PPoly (power basis, highest power first)."""
+        degree = self._taylor.shape[1] - 1 - derivative
+        return PPoly(self._taylor[derivative, degree::-1], self._breaks)
+
     def extremes(self, derivative: int) -> tuple:
         """(min, max) of the position (``derivative`` 0) or one of its derivatives over all time.
 
-        Exact up to round-off: the extremes lie at the ends or where the next derivative
+        Exact up to round-off: the extremes lie at the waypoints or where the next derivative
         vanishes, found as roots of the piecewise polynomial (scipy.interpolate.PPoly.roots).
         """
-        spline, order = self._spline, self._spline.k
-        breaks = np.unique(spline.t[order:-order])
-        # the next derivative as a scipy PPoly from its Taylor coefficients at each break (built by
-        # hand: PPoly.from_spline goes through FITPACK, which handles degree <= 5 and crashed here)
-        degree = order - derivative - 1
-        coefficients = [spline(breaks[:-1], nu=derivative + 1 + m) / math.factorial(m) for m in range(degree, -1, -1)]
-        roots = PPoly(np.array(coefficients), breaks).roots(extrapolate=False)
-        candidates = np.concatenate([breaks, roots[np.isfinite(roots)]])
-        values = spline(candidates, nu=derivative)
+        roots = self._piece(derivative + 1).roots(extrapolate=False)
+        candidates = np.concatenate([self._breaks, roots[np.isfinite(roots)]])
+        values = self._piece(derivative)(candidates)
         rest = [float(self.positions[0]), float(self.positions[-1])] if derivative == 0 else [0.0]
         return min(float(values.min()), *rest), max(float(values.max()), *rest)
 
@@ -271,8 +284,10 @@ class WaypointSpline:
         t0, t1 = self.times[0], self.times[-1]
         if t <= t0 or t >= t1:
             return Reference(float(self.positions[0] if t <= t0 else self.positions[-1]))
-        spline = self._spline
-        return Reference(*(float(spline(t, nu=d)) for d in range(DERIVATIVES + 1)))
+        i = bisect.bisect_right(self.times, t) - 1
+        x = t - self.times[i]
+        values = self._taylor[:DERIVATIVES + 1, :, i] @ x ** np.arange(self._taylor.shape[1])
+        return Reference(*map(float, values))
 
 
 def spline_through(motion, spacing: float) -> WaypointSpline:
