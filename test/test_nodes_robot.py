@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 from rcl_interfaces.srv import SetParameters
 from rclpy.parameter import Parameter
-from rclpy.qos import QoSProfile
+from rclpy.qos import QoSProfile, qos_profile_sensor_data
 from sensor_msgs.msg import JointState
 
 pytest.importorskip("pinocchio", reason="URDF robots need Pinocchio (the pin package)")
@@ -156,3 +156,31 @@ def test_the_bench_joint_has_no_floor_to_move(ros):
     refused = sim.set_parameters([Parameter("contact.height", value=0.1)])[0]
     assert not refused.successful and refused.reason.startswith("contact.height: fixed after start")
     assert sim.plant.floor is None
+
+
+@pytest.mark.parametrize("held", [True, False])
+def test_in_real_time_the_leg_rests_on_its_stand_until_the_first_command(ros, held):
+    """Real time (lock_step false): with hold_until_commanded (the default) the leg's state goes out
+    at its rest pose (scenarios.rest_state, the offline simulators' start) with fresh stamps and the
+    plant does not move until a motor_effort command comes; then it runs. Without it the leg runs
+    unheld from the start: with zero torque the motors let the springs unload and the links sag
+    (gravity, the URDF's inertias)."""
+    params = {**config.node_parameters(config.read(LEG_FILE), config.SIM_NODE), "hold_until_commanded": held}
+    states = []  # real time publishes with sensor-data QoS (best effort)
+    ros.probe.node.create_subscription(JointState, "joint_states", states.append, qos_profile_sensor_data)
+    sim = ros.start(SimulatedJointNode, params)
+    ros.spin_for(0.3)
+    rest = scenarios.rest_state(LEG.joints, LEG.links)[:, 0]
+    stamps = [seconds(m.header.stamp) for m in states]
+    q = np.array([[m.position[list(m.name).index(n)] for n in LEG.joint_names] for m in states])
+    sagged = float(np.max(np.abs(q[-1] - rest)))
+    print(f"hold_until_commanded {held}: {len(stamps)} states in 0.3 s, plant ticks {sim.plant.ticks}, "
+          f"largest sag {sagged:.4f} rad")
+    assert len(stamps) > 20 and all(b > a for a, b in zip(stamps, stamps[1:]))  # fresh stamps either way
+    if held:
+        assert sim.plant.ticks == 0 and sagged == 0.0
+        command = JointState(name=[j.command for j in LEG_CTRL.joints], effort=[0.0] * 3)
+        ros.publish_when_heard(ros.probe.node.create_publisher(JointState, "motor_effort", 10), command)
+        assert ros.spin_until(lambda: sim.plant.ticks > 20, 5.0)  # released: the plant runs
+    else:
+        assert sim.plant.ticks > 20 and sagged > 0.01

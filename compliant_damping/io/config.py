@@ -272,6 +272,7 @@ class SimSetup:
     substeps: int            # plant integration steps per state period
     command_timeout: float   # s: older commands are replaced by zero torque
     lock_step: bool          # advance one period per command and publish /clock
+    hold_until_commanded: bool  # real time: rest at the start state until the first command
     seed: int                # noise seed
     links: object = field(compare=False)  # link dynamics of the simulated robot (built from the rest)
     urdf_source: str | None  # where its URDF came from; None for the built-in joints

@@ -74,6 +74,8 @@ SIM_SETTINGS = (
     Setting("substeps", int, 10, "plant RK4 steps per state period"),
     Setting("command_timeout", float, 0.05, "s; older effort commands are replaced by zero", check="positive"),
     Setting("lock_step", bool, False, "advance one period per command and publish /clock"),
+    Setting("hold_until_commanded", bool, True, "real time: the robot rests at its start state, as on a stand, "
+            "until the first motor_effort command (false: it runs, and may fall, from the start)"),
     Setting("seed", int, 0, "seed of the sensor noise"),
     Setting("robot_urdf", str, "", "simulated robot's URDF file: path or package://PACKAGE/PATH "
             "('' with no robot_description: built-in pendulum joints)"),

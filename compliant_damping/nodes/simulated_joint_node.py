@@ -29,7 +29,10 @@ Modes:
 
 * real time (``lock_step: false``): a timer at state_rate advances the plant to the node clock
   (whole periods; a late tick catches up, up to MAX_CATCH_UP periods) and publishes the newest
-  state, stamped with the plant's time; sensor-data QoS (best effort, keep last 5).
+  state, stamped with the plant's time; sensor-data QoS (best effort, keep last 5). With
+  ``hold_until_commanded`` (the default) the robot rests at its start state, as on a stand, until
+  the first ``motor_effort`` command: its state goes out every period with fresh stamps and plant
+  time starts then (without it a URDF leg falls while the controller comes up).
 * lock step (``lock_step: true``): sim time starts at 0; the first state and /clock go out at
   start; each ``motor_effort`` whose header.stamp equals the last state's stamp advances exactly
   one period (other commands are ignored) and /clock and the new state go out. Reliable QoS,
@@ -91,6 +94,7 @@ class SimulatedJointNode(Node):
             self._publish()
         else:
             self._start_ns = self.get_clock().now().nanoseconds  # plant time 0 on the node clock
+            self._held = self.setup.hold_until_commanded
             self.create_timer(self.plant.period, self._on_tick)
         startup.log_start(self, names)
 
@@ -111,6 +115,7 @@ class SimulatedJointNode(Node):
             return
         now = self._state_time()
         self._latest = [old if t is None else (t, now) for t, old in zip(taus, self._latest)]
+        self._held = False
 
     def _on_tick(self):
         """Advance the plant to the node clock in whole periods, then publish the newest state.
@@ -119,6 +124,10 @@ class SimulatedJointNode(Node):
         real time. A backlog beyond MAX_CATCH_UP periods (a stalled process) is dropped.
         """
         due = (self.get_clock().now().nanoseconds - self._start_ns) // self._period_ns - self.plant.ticks
+        if self._held and due > 0:  # on the stand: time goes on, the plant does not
+            self._start_ns += due * self._period_ns
+            self._publish()
+            return
         if due > MAX_CATCH_UP:
             self._start_ns += (due - MAX_CATCH_UP) * self._period_ns
             due = MAX_CATCH_UP
