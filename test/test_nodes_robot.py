@@ -165,7 +165,8 @@ def test_in_real_time_the_leg_rests_on_its_stand_until_the_first_command(ros, he
     plant does not move until a motor_effort command comes; then it runs. Without it the leg runs
     unheld from the start: with zero torque the motors let the springs unload and the links sag
     (gravity, the URDF's inertias)."""
-    params = {**config.node_parameters(config.read(LEG_FILE), config.SIM_NODE), "hold_until_commanded": held}
+    params = {**config.node_parameters(config.read(LEG_FILE), config.SIM_NODE), "lock_step": False,
+              "hold_until_commanded": held}
     states = []  # real time publishes with sensor-data QoS (best effort)
     ros.probe.node.create_subscription(JointState, "joint_states", states.append, qos_profile_sensor_data)
     sim = ros.start(SimulatedJointNode, params)

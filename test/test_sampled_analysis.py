@@ -197,3 +197,50 @@ def test_decoupled_damper_boundary_at_1khz_matches_simulation(joint):
     early, middle, late = _step_envelope(cj, sj, kv)
     assert late > 5.0 * early
     assert late / middle == pytest.approx(radius ** 800, rel=0.2)
+
+
+def test_the_leg_tolerates_one_tick_of_delay_and_not_two():
+    """The bundled leg's decoupled_damper at 1 kHz: the sampled loop with the sensors' transport delay
+    (analyze_robot's delay line) is stable with one tick (|z| = 0.991) and unstable with two (1.052).
+    The offline robot simulator with the same delay (sim/sensors.SensorChannel) agrees: from a
+    1e-7 rad spring deflection the motor speed dies out with 1 ms of delay and grows with 2 ms, by
+    |z|^50 per 50 ticks within a factor 2 (motor Coulomb friction and the driver limit off, as in the
+    analysis: the friction's smoothed stiction damps a small oscillation, the limit caps a large one,
+    so with them the 2 ms loop ends in a 0.3 rad limit cycle after a 0.02 N m s impulse, measured)."""
+    pytest.importorskip("pinocchio", reason="URDF chains need Pinocchio (the pin package)")
+    from compliant_damping.control import controller
+    from compliant_damping.control.controller import RobotController
+    from compliant_damping.sim import robot_sim
+    from compliant_damping.sim.sensors import SensorParams
+    paths = [str(config.bundled().parent / "compliant_leg.yaml")]
+    ctrl = config.controller_setup(config.layered_parameters(paths, config.CONTROLLER_NODE))
+    sim = config.sim_setup(config.layered_parameters(paths, config.SIM_NODE))
+    law = make_law(ctrl.law, controller.chain_nominal(ctrl), controller.stack_gains([j.gains for j in ctrl.joints]))
+    q_d = scenarios.rest_state(sim.joints, sim.links)[:, 0]
+    radius = {}
+    for ticks in (1, 2):
+        res = sampled.analyze_robot(robot_sim.robot_plant(sim), law, q_d, control_dt=T, substeps=sim.substeps,
+                                    delays=[ticks] * 3)
+        radius[ticks] = float(np.max(np.abs(res.eigenvalues)))
+    assert radius[1] == pytest.approx(0.991, abs=5e-4) and radius[2] == pytest.approx(1.052, abs=5e-4)
+
+    linear_sim = dataclasses.replace(sim, joints=tuple(
+        dataclasses.replace(j, plant=dataclasses.replace(j.plant, motor_coulomb=0.0, driver_torque_limit=1e9))
+        for j in sim.joints))
+    raised = Limits(torque=1e9, torque_rate=1e12, deflection=10.0, driver_torque=1e9, link_speed=1e6,
+                    motor_speed=1e6, position_lower=-10.0, position_upper=10.0)
+    scenario = scenarios.make("free_oscillation", linear_sim.joints, links=linear_sim.links, deflection=1e-7)
+    growth = {}
+    for ticks in (1, 2):
+        robot = RobotController(ctrl.law, controller.chain_nominal(ctrl), [j.gains for j in ctrl.joints],
+                                [raised] * 3, ctrl.joint_names)
+        run = robot_sim.simulate_robot(robot_sim.robot_plant(linear_sim, scenario), robot, scenario, 0.15,
+                                       control_dt=T, substeps=sim.substeps, sensors=[SensorParams(delay=ticks * T)] * 3)
+        speed = np.abs(run.dtheta).max(axis=1)
+        window = lambda lo: speed[(run.t >= lo) & (run.t < lo + 0.05)].max()  # noqa: E731
+        growth[ticks] = window(0.1) / window(0.05)
+        assert robot.faults == [None] * 3
+    print(f"leg with sensor delay: |z| {radius}; motor speed over 50 ticks x{growth} "
+          f"(|z|^50: {radius[1] ** 50:.3g}, {radius[2] ** 50:.3g})")
+    assert growth[1] < 1.0
+    assert radius[2] ** 50 / 2 < growth[2] < 2 * radius[2] ** 50
