@@ -225,7 +225,7 @@ def time_pings(driver, pid: int, count: int, where: str) -> dict:
     cores_busy = (busy1 - busy0) / max(total1 - total0, 1) * os.cpu_count()
     (latency, trips), sent = np.array(trips).T, len(trips) + lost
     return {"median": float(np.median(latency)), "p99": float(np.percentile(latency, 99)),
-            "max": float(latency.max()), "rt_median": float(np.median(trips)),
+            "max": float(latency.max()), "max_at": int(latency.argmax()), "rt_median": float(np.median(trips)),
             "rt_p99": float(np.percentile(trips, 99)),
             "late": int(np.count_nonzero(latency > driver.period_ns * 1e-9)), "skipped": driver.skipped - skipped0,
             "cpu": cpu / sent, "idle": idle, "net": (cpu - idle * wall) / sent, "lost": lost,

@@ -6,7 +6,8 @@ robot's states, stamped 1 ms apart, as node_latency.py sends them. Timed side by
 run: ``--rounds`` interleaved rounds of ``--ticks`` calls each, medians; the controller's callback
 includes its publishes (nobody subscribes) and its law tick. An empty executor pass over each node
 (spin_once with zero timeout, nothing ready) is timed the same way: the rclpy executor's cost per
-wake-up, which grows with the node's subscriptions, timers and services. Then one more pass of the
+wake-up, which grows with the node's subscriptions, timers and services. Python's garbage
+collections during the timed calls are counted and timed, and a full collection is timed. Then one more pass of the
 controller's callback under cProfile: cumulative time per tick of the callback's parts and the
 functions with the most own time.
 
@@ -18,6 +19,7 @@ from __future__ import annotations
 
 import argparse
 import cProfile
+import gc
 import pstats
 import statistics
 import sys
@@ -58,6 +60,27 @@ def per_pass(node, passes: int) -> float:
     return spent
 
 
+class GcTimes:
+    """Python's garbage collections (count and longest, per generation) from construction to stop()."""
+
+    def __init__(self):
+        self.spent, self._start = {0: [], 1: [], 2: []}, 0.0
+        gc.callbacks.append(self._on_gc)
+
+    def _on_gc(self, phase, info):
+        if phase == "start":
+            self._start = time.perf_counter()
+        else:
+            self.spent[info["generation"]].append(time.perf_counter() - self._start)
+
+    def stop(self):
+        gc.callbacks.remove(self._on_gc)
+
+    def __str__(self):
+        return "; ".join(f"generation {g} {len(t)} times, longest {max(t, default=0.0) * 1e3:.1f} ms"
+                         for g, t in self.spent.items()) + " during the timed calls"
+
+
 class Stream:
     """Joint states of ``robot`` stamped one period apart, continuing across batches."""
 
@@ -85,9 +108,11 @@ def profile(robot, args, folder: Path) -> None:
         per_call(ctrl._on_state, stream.batch(args.ticks), info)  # warm-up: first tick, caches
         per_call(echo._on_state, stream.batch(args.ticks), None)
         times = {"echo": [], "controller": []}
+        collections = GcTimes()
         for _ in range(args.rounds):  # interleaved, so drifts of the shared machine hit both
             times["echo"].append(per_call(echo._on_state, stream.batch(args.ticks), None))
             times["controller"].append(per_call(ctrl._on_state, stream.batch(args.ticks), info))
+        collections.stop()
         passes = {"echo": [], "controller": []}
         for _ in range(args.rounds):
             passes["echo"].append(per_pass(echo, args.ticks))
@@ -107,6 +132,11 @@ def profile(robot, args, folder: Path) -> None:
               f"echo {empty['echo'] * 1e6:.1f} us, controller {empty['controller'] * 1e6:.1f} us, "
               f"ratio {empty['controller'] / empty['echo']:.1f}x (its node has {entities(ctrl)} entities to wait "
               f"on, the echo's {entities(echo)})")
+        full = time.perf_counter()
+        gc.collect()
+        full = time.perf_counter() - full
+        print(f"  garbage collection: {collections}; a full collection now ({len(gc.get_objects())} objects "
+              f"tracked) took {full * 1e3:.1f} ms")
         msgs = stream.batch(args.ticks)
         prof = cProfile.Profile()
         prof.enable()
