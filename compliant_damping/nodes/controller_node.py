@@ -158,6 +158,7 @@ class ControllerNode(LifecycleNode):
                           self.create_service(Trigger, "~/stop", self._on_stop),
                           self.create_service(Trigger, "~/reset_fault", self._on_reset)]
         startup.log_start(self, s.joint_names, s.law)
+        startup.freeze_heap()
         return TransitionCallbackReturn.SUCCESS
 
     def on_activate(self, state):

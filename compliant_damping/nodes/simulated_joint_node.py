@@ -97,6 +97,7 @@ class SimulatedJointNode(Node):
             self._held = self.setup.hold_until_commanded
             self.create_timer(self.plant.period, self._on_tick)
         startup.log_start(self, names)
+        startup.freeze_heap()
 
     def _state_time(self) -> float:
         """Time of the last published state (s): sim time in lock step, the node clock otherwise."""
