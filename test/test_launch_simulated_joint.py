@@ -17,7 +17,6 @@ launch_testing's pytest plugin (jazzy and rolling sources) declares a hook argum
 pytest 9 no longer has, so with the plugin installed use pytest < 9 or ``launch_test FILE``.
 """
 import math
-import os
 import tempfile
 import time
 import unittest
@@ -32,14 +31,14 @@ pytest.importorskip("launch_ros", reason="launch tests need the ROS 2 launch pac
 import launch  # noqa: E402
 import launch_testing.actions  # noqa: E402
 import launch_testing.asserts  # noqa: E402
-import rclpy  # noqa: E402
 import yaml  # noqa: E402
 from launch.launch_description_sources import PythonLaunchDescriptionSource  # noqa: E402
 from rcl_interfaces.srv import GetParameters  # noqa: E402
-from rclpy.qos import QoSProfile, qos_profile_sensor_data  # noqa: E402
+from rclpy.qos import QoSProfile  # noqa: E402
 from sensor_msgs.msg import JointState  # noqa: E402
 
 from compliant_damping.io import config  # noqa: E402
+from launch_probe import NamespaceProbe, spin_until  # noqa: E402
 
 LAUNCH_FILE = Path(__file__).resolve().parent.parent / "launch" / "simulated_joint.launch.py"
 RUN = uuid.uuid4().hex[:8]
@@ -70,38 +69,12 @@ def generate_test_description(lock_step):
     ])
 
 
-def spin_until(node, done, timeout):
-    """Spin ``node`` until ``done()`` or ``timeout`` s of wall time; returns done()."""
-    end = time.monotonic() + timeout
-    while time.monotonic() < end and not done():
-        rclpy.spin_once(node, timeout_sec=0.05)
-    return done()
-
-
-class TestSimulatedJointLaunch(unittest.TestCase):
-    @classmethod
-    def setUpClass(cls):
-        assert os.environ.get("ROS_AUTOMATIC_DISCOVERY_RANGE") == "LOCALHOST"  # network rule
-        rclpy.init()
-        cls.node = rclpy.create_node("launch_test_probe")
-        cls.ns = None
-        cls.states, cls.commands = [], []
-
-    @classmethod
-    def tearDownClass(cls):
-        cls.node.destroy_node()
-        rclpy.shutdown()
+class TestSimulatedJointLaunch(NamespaceProbe, unittest.TestCase):
+    probe_name = "launch_test_probe"
 
     def listen(self, lock_step):
         """Namespace of this run; subscribes to its joint_states and motor_effort once."""
-        cls = type(self)
-        if cls.ns is None:
-            cls.ns = namespace(lock_step)
-            cls.node.create_subscription(JointState, f"/{cls.ns}/joint_states", cls.states.append,
-                                         qos_profile_sensor_data)
-            cls.node.create_subscription(JointState, f"/{cls.ns}/motor_effort", cls.commands.append,
-                                         qos_profile_sensor_data)
-        return cls.ns
+        return self.listen_to(namespace(lock_step))
 
     def test_1_states_and_commands_flow(self, lock_step):
         ns = self.listen(lock_step)

@@ -30,9 +30,7 @@ Runs as a launch_testing test (pytest plugin, or ``launch_test FILE``) with the 
 and the package's executables on the ament index (colcon workspace). Skipped without them. Each
 wait is bounded (30 s at most).
 """
-import os
 import tempfile
-import time
 import unittest
 import uuid
 from pathlib import Path
@@ -46,15 +44,13 @@ import launch  # noqa: E402
 import launch_testing.actions  # noqa: E402
 import launch_testing.asserts  # noqa: E402
 import numpy as np  # noqa: E402
-import rclpy  # noqa: E402
 import yaml  # noqa: E402
 from launch.launch_description_sources import PythonLaunchDescriptionSource  # noqa: E402
 from rcl_interfaces.msg import ParameterType  # noqa: E402
 from rcl_interfaces.srv import GetParameters  # noqa: E402
-from rclpy.qos import qos_profile_sensor_data  # noqa: E402
-from sensor_msgs.msg import JointState  # noqa: E402
 
 from compliant_damping.io import config  # noqa: E402
+from launch_probe import NamespaceProbe, spin_until  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent
 LAUNCH_FILE = ROOT / "launch" / "simulated_joint.launch.py"
@@ -94,38 +90,12 @@ def generate_test_description(run):
     ])
 
 
-def spin_until(node, done, timeout):
-    """Spin ``node`` until ``done()`` or ``timeout`` s of wall time; returns done()."""
-    end = time.monotonic() + timeout
-    while time.monotonic() < end and not done():
-        rclpy.spin_once(node, timeout_sec=0.05)
-    return done()
-
-
-class TestLegLaunch(unittest.TestCase):
-    @classmethod
-    def setUpClass(cls):
-        assert os.environ.get("ROS_AUTOMATIC_DISCOVERY_RANGE") == "LOCALHOST"  # network rule
-        rclpy.init()
-        cls.node = rclpy.create_node("launch_test_leg_probe")
-        cls.ns = None
-        cls.states, cls.commands = [], []
-
-    @classmethod
-    def tearDownClass(cls):
-        cls.node.destroy_node()
-        rclpy.shutdown()
+class TestLegLaunch(NamespaceProbe, unittest.TestCase):
+    probe_name = "launch_test_leg_probe"
 
     def listen(self, run):
         """Namespace of this run; subscribes to its joint_states and motor_effort once."""
-        cls = type(self)
-        if cls.ns is None:
-            cls.ns = namespace(run)
-            cls.node.create_subscription(JointState, f"/{cls.ns}/joint_states", cls.states.append,
-                                         qos_profile_sensor_data)
-            cls.node.create_subscription(JointState, f"/{cls.ns}/motor_effort", cls.commands.append,
-                                         qos_profile_sensor_data)
-        return cls.ns
+        return self.listen_to(namespace(run))
 
     def parameters(self, ns, node_name, names):
         client = self.node.create_client(GetParameters, f"/{ns}/{node_name}/get_parameters")
