@@ -89,7 +89,7 @@ STATS = ("median", "p99", "max", "rt_median", "rt_p99", "late", "cpu", "net", "i
 class EchoNode(Node):
     """Answers each joint state at once: zero effort per motor entry, the same stamp."""
 
-    def __init__(self):
+    def __init__(self, own_process: bool = False):  # spin.run's flag: a bare node has nothing of its own to freeze
         super().__init__("latency_echo")
         self._pub = self.create_publisher(JointState, "motor_effort", 1000)  # the controller's QoS
         self.create_subscription(JointState, "joint_states", self._on_state, qos_profile_sensor_data)

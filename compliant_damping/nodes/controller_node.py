@@ -109,8 +109,12 @@ def _stamp(ns: int) -> Time:
 
 
 class ControllerNode(LifecycleNode):
-    def __init__(self, **kwargs):
+    def __init__(self, own_process: bool = False, **kwargs):
+        """``own_process``: the node is its process's only one (spin.run): it freezes the heap once
+        set up (startup.freeze_heap). Tests running many nodes in one process leave it off: what
+        was frozen is never collected, so their torn-down nodes would stay alive."""
         super().__init__(config.CONTROLLER_NODE, **params.NODE_OPTIONS, **kwargs)
+        self._own_process = own_process
         self._keys = params.declare(self, config.CONTROLLER_NODE)
         self.setup = self.bank = None
         self.active = False
@@ -158,7 +162,8 @@ class ControllerNode(LifecycleNode):
                           self.create_service(Trigger, "~/stop", self._on_stop),
                           self.create_service(Trigger, "~/reset_fault", self._on_reset)]
         startup.log_start(self, s.joint_names, s.law)
-        startup.freeze_heap()
+        if self._own_process:
+            startup.freeze_heap()
         return TransitionCallbackReturn.SUCCESS
 
     def on_activate(self, state):

@@ -68,8 +68,12 @@ def _ns(stamp) -> int:
 
 
 class SimulatedJointNode(Node):
-    def __init__(self, **kwargs):
+    def __init__(self, own_process: bool = False, **kwargs):
+        """``own_process``: the node is its process's only one (spin.run): it freezes the heap once
+        set up (startup.freeze_heap). Tests running many nodes in one process leave it off: what
+        was frozen is never collected, so their torn-down nodes would stay alive."""
         super().__init__(config.SIM_NODE, **params.NODE_OPTIONS, **kwargs)
+        self._own_process = own_process
         self._keys = params.declare(self, config.SIM_NODE)
         self.setup = params.setup(self, config.SIM_NODE, self._keys)
         self.plant = Plant(self.setup)
@@ -97,7 +101,8 @@ class SimulatedJointNode(Node):
             self._held = self.setup.hold_until_commanded
             self.create_timer(self.plant.period, self._on_tick)
         startup.log_start(self, names)
-        startup.freeze_heap()
+        if self._own_process:
+            startup.freeze_heap()
 
     def _state_time(self) -> float:
         """Time of the last published state (s): sim time in lock step, the node clock otherwise."""

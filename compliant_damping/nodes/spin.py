@@ -52,7 +52,7 @@ def run(node_class, args=None, on_exit=None) -> int:
         signal.signal(sig, lambda signum, _frame: stop.append(signum))
     node = None
     try:
-        node = node_class()
+        node = node_class(own_process=True)
         executor = SingleThreadedExecutor()
         executor.add_node(node)
         while rclpy.ok() and not stop:

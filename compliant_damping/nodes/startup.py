@@ -36,6 +36,8 @@ def freeze_heap() -> None:
     (``gc.freeze``), so later collections look only at objects made since. A node freezes once its
     models are built: before, a full collection of the controller's heap (its URDF model, the
     numerical libraries' objects) stalled the loop for 44-56 ms once in about 500 ticks
-    (benchmarks/node_tick_profile.py, benchmarks/node_latency.py)."""
+    (benchmarks/node_tick_profile.py, benchmarks/node_latency.py). Objects frozen by an earlier
+    call are thawed first, so what a reconfigured node let go of is still collected."""
+    gc.unfreeze()
     gc.collect()
     gc.freeze()
