@@ -45,29 +45,30 @@ class ReferenceSchedule:
 
     def add(self, stamp: float, names, position, velocity) -> Rejection | None:
         """Queue one sample message (stamp s); returns its :class:`Rejection` when refused, else None."""
-        return self._queue(stamp, self._checked(names, position, velocity))
+        refs = self._checked(names, position, velocity)
+        return self._refuse(refs) if isinstance(refs, Rejection) else self._enqueue(stamp, refs)
 
     def add_trajectory(self, names, times, positions, filled=()) -> Rejection | None:
         """Queue one trajectory message (trajectory_codec.decode_trajectory: point times in s of node
         time, positions per point); returns its :class:`Rejection` when refused, else None."""
         motion = decode_trajectory(self._names, self.limits, names, times, positions, filled)
         if isinstance(motion, Rejection):
-            return self._queue(0.0, motion)
+            return self._refuse(motion)
         clipped = beyond_position_limits(self._names, self.limits, motion)
         if clipped is not None:
             self.clipped += 1
             self.last_issue = clipped
-        return self._queue(times[0], motion)
+        return self._enqueue(times[0], motion)
 
-    def _queue(self, stamp: float, entry) -> Rejection | None:
-        if isinstance(entry, Rejection):
-            self.rejected += 1
-            self.last_issue = entry
-            return entry
+    def _refuse(self, rejection: Rejection) -> Rejection:
+        self.rejected += 1
+        self.last_issue = rejection
+        return rejection
+
+    def _enqueue(self, stamp: float, entry: dict) -> None:
         self._seq += 1
         bisect.insort(self._pending, (stamp, self._seq, entry), key=lambda e: (e[0], e[1]))
         del self._pending[:-self._max]
-        return None
 
     def _checked(self, names, position, velocity):
         pos = pick_values(names, position, self._names)
