@@ -7,15 +7,14 @@ import math
 
 import numpy as np
 import pytest
-from builtin_interfaces.msg import Duration
 from rclpy.parameter import Parameter
 from sensor_msgs.msg import JointState
-from trajectory_msgs.msg import JointTrajectory, JointTrajectoryPoint
 
 from compliant_damping.analysis import linear
 from compliant_damping.io import config, parameter_keys
 from compliant_damping.control import controller, laws
 from compliant_damping.io.metrics import joint_metrics
+from compliant_damping.nodes.messages import trajectory_msg
 from compliant_damping.sim import scenarios, simulate
 from node_harness import DOC, ros, seconds, stamp  # noqa: F401 (ros is a fixture)
 
@@ -202,16 +201,6 @@ def test_accepted_gain_change_ramps_in_over_gain_ramp_time(ros):
     assert ctrl.bank[0].fault is None
 
 
-def _trajectory(spline, **extra) -> JointTrajectory:
-    """The knee's motion as a trajectory message stamped with its first knot (knots on whole ns)."""
-    knots = [round(t * 1e9) for t in spline.times]
-    msg = JointTrajectory(joint_names=["knee"], points=[
-        JointTrajectoryPoint(positions=[p], time_from_start=Duration(sec=(k - knots[0]) // 10**9, nanosec=(k - knots[0]) % 10**9),
-                             **extra) for k, p in zip(knots, spline.positions)])
-    msg.header.stamp = stamp(spline.times[0])
-    return msg
-
-
 def test_a_trajectory_over_ros_is_tracked_as_offline(ros):
     """track_move (0.3 rad in 0.8 s) sent on link_trajectory: the lock-step loop equals the offline
     simulator given the same spline (scenarios.streamed) to 1e-9 rad, and decoupled_damper tracks it
@@ -223,10 +212,12 @@ def test_a_trajectory_over_ros_is_tracked_as_offline(ros):
     assert ctrl.trigger_configure().name == "SUCCESS"
     sim = ros.simulated_joint()  # waits: nobody answers yet
     spline = scenario.references[0]
-    ros.publish_when_heard(ros.probe.trajectory, _trajectory(spline, velocities=[0.0]))
+    with_speeds = trajectory_msg("knee", spline)
+    with_speeds.points[1].velocities = [0.0]
+    ros.publish_when_heard(ros.probe.trajectory, with_speeds)
     assert ros.spin_until(lambda: ctrl.refs.rejected == 1, 5.0) and len(ctrl.refs) == 0
     assert "points carry velocities" in ctrl.refs.last_issue.reason
-    ros.probe.trajectory.publish(_trajectory(spline))
+    ros.probe.trajectory.publish(trajectory_msg("knee", spline))
     assert ros.spin_until(lambda: len(ctrl.refs) == 1, 5.0)
     assert ctrl.trigger_activate().name == "SUCCESS"
     assert ros.spin_until(lambda: sim.plant.ticks >= round(scenario.duration * 1000), 60.0)

@@ -91,6 +91,7 @@ from compliant_damping.io.reference_schedule import ReferenceSchedule
 from compliant_damping.io.runtime_changes import runtime_refusal
 from compliant_damping.nodes import params, spin, startup
 from compliant_damping.nodes.diagnostics import joint_statuses
+from compliant_damping.nodes.messages import nanoseconds, time_msg
 
 WAITING_REPORT = 1.0     # s of steady time active without a joint state before it is reported
 SUPERVISE_PERIOD = 0.25  # s of steady time between checks of the clock, the command topic and the logs
@@ -98,14 +99,6 @@ BURST_GAP = 1.0          # s without rejections that ends a burst of rejected me
 NEWEST_ONLY = QoSProfile(history=HistoryPolicy.KEEP_LAST, depth=1, reliability=ReliabilityPolicy.BEST_EFFORT)
 UNSUPPORTED_SEQUENCE = 2 ** 64 - 1  # rmw's RMW_MESSAGE_INFO_SEQUENCE_NUMBER_UNSUPPORTED
 TRAJECTORY_EXTRAS = ("velocities", "accelerations", "effort")  # point fields a trajectory must leave empty
-
-
-def _ns(stamp) -> int:
-    return stamp.sec * 1_000_000_000 + stamp.nanosec
-
-
-def _stamp(ns: int) -> Time:
-    return Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
 
 
 class ControllerNode(LifecycleNode):
@@ -225,7 +218,7 @@ class ControllerNode(LifecycleNode):
             return
         self._count_dropped(info)
         now = self._now()
-        stamp = _ns(msg.header.stamp)
+        stamp = nanoseconds(msg.header.stamp)
         t = self._time(stamp) if stamp else now
         kind = self.stamps.classify(t, now)
         if kind is codec.Stamp.REPEATED:
@@ -280,14 +273,14 @@ class ControllerNode(LifecycleNode):
         return self._hold[j]
 
     def _on_reference(self, msg):
-        rejection = self.refs.add(self._time(_ns(msg.header.stamp)), msg.name, msg.position, msg.velocity)
+        rejection = self.refs.add(self._time(nanoseconds(msg.header.stamp)), msg.name, msg.position, msg.velocity)
         if rejection is not None:
             self._rejected("link reference", rejection)
 
     def _on_trajectory(self, msg):
-        base = _ns(msg.header.stamp) or self.get_clock().now().nanoseconds
+        base = nanoseconds(msg.header.stamp) or self.get_clock().now().nanoseconds
         filled = sorted({f for p in msg.points for f in TRAJECTORY_EXTRAS if len(getattr(p, f))})
-        rejection = self.refs.add_trajectory(msg.joint_names, [self._time(base + _ns(p.time_from_start)) for p in msg.points],
+        rejection = self.refs.add_trajectory(msg.joint_names, [self._time(base + nanoseconds(p.time_from_start)) for p in msg.points],
                                              [list(p.positions) for p in msg.points], filled)
         if rejection is not None:
             self._rejected("link trajectory", rejection)
@@ -424,7 +417,7 @@ class ControllerNode(LifecycleNode):
 
     def _stamp_of(self, t: float) -> Time:
         """The message stamp of stamp time ``t`` (s)."""
-        return _stamp(self._epoch_ns + round(t * 1e9))
+        return time_msg(self._epoch_ns + round(t * 1e9))
 
     @property
     def last_answered_ns(self) -> int | None:

@@ -40,36 +40,16 @@ import time
 import numpy as np
 import rclpy
 import rclpy.utilities
-from builtin_interfaces.msg import Duration, Time
 from lifecycle_msgs.msg import Transition
 from lifecycle_msgs.srv import ChangeState
 from rclpy.qos import QoSProfile
 from sensor_msgs.msg import JointState
-from trajectory_msgs.msg import JointTrajectory, JointTrajectoryPoint
+from trajectory_msgs.msg import JointTrajectory
 
 from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
+from compliant_damping.nodes import messages
 from compliant_damping.sim import scenarios
-
-
-def _ns(stamp) -> int:
-    return stamp.sec * 1_000_000_000 + stamp.nanosec
-
-
-def _time_msg(ns: int) -> Time:
-    return Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
-
-
-def _trajectory_message(joint: str, motion) -> JointTrajectory:
-    """One joint's motion (references.WaypointSpline, knots on whole ns) as a trajectory message
-    stamped with its first knot."""
-    knots = [round(t * 1e9) for t in motion.times]
-    points = [JointTrajectoryPoint(positions=[float(p)], time_from_start=Duration(sec=(k - knots[0]) // 1_000_000_000,
-                                                                                  nanosec=(k - knots[0]) % 1_000_000_000))
-              for k, p in zip(knots, motion.positions)]
-    msg = JointTrajectory(joint_names=[joint], points=points)
-    msg.header.stamp = _time_msg(knots[0])
-    return msg
 
 
 class ScenarioPlayer:
@@ -104,7 +84,7 @@ class ScenarioPlayer:
         """Publish reference samples up to ``tick + lead`` (never past the run's last tick, after which the last sample holds)."""
         if self.sent == 0:
             for joint, motion in self.motions.items():
-                self.trajectory.publish(_trajectory_message(joint, motion))
+                self.trajectory.publish(messages.trajectory_msg(joint, motion))
         last = min(tick + self.lead, self.ticks)
         while self.sent <= last:
             t = self.sent * self.period_ns * 1e-9
@@ -114,12 +94,12 @@ class ScenarioPlayer:
             if held:
                 msg = JointState(name=[j for j, _ in held], position=[s.q for _, s in held],
                                  velocity=[s.dq for _, s in held])
-                msg.header.stamp = _time_msg(self.sent * self.period_ns)
+                msg.header.stamp = messages.time_msg(self.sent * self.period_ns)
                 self.reference.publish(msg)
             self.sent += 1
 
     def _on_state(self, msg):
-        tick = round(_ns(msg.header.stamp) / self.period_ns)
+        tick = round(messages.nanoseconds(msg.header.stamp) / self.period_ns)
         samples = self.decoder.decode(msg.name, msg.position, msg.velocity, msg.effort)
         if not isinstance(samples, codec.Rejection):
             tau_s = codec.pick_values(msg.name, msg.effort, self.joints)
@@ -128,7 +108,7 @@ class ScenarioPlayer:
 
     def _on_effort(self, msg):
         """Record the command; publish the reference ahead of the tick it leads to, then relay it to the joint."""
-        tick = round(_ns(msg.header.stamp) / self.period_ns)
+        tick = round(messages.nanoseconds(msg.header.stamp) / self.period_ns)
         taus = codec.pick_values(msg.name, msg.effort, self.commands)
         if not isinstance(taus, codec.Rejection):
             self.efforts[tick] = taus

@@ -46,7 +46,6 @@ import math
 import sys
 from dataclasses import fields
 
-from builtin_interfaces.msg import Time
 from rclpy.clock import Clock, ClockType
 from rclpy.node import Node
 from rclpy.qos import QoSProfile, qos_profile_sensor_data
@@ -56,15 +55,12 @@ from sensor_msgs.msg import JointState
 from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
 from compliant_damping.nodes import params, spin, startup
+from compliant_damping.nodes.messages import nanoseconds, time_msg
 from compliant_damping.sim.plant import Plant
 
 REPEAT_AFTER = 0.2  # s of wall time without an answering command before the state is sent again
 MAX_CATCH_UP = 20  # periods a late real-time tick may advance at once
 FLOOR_HEIGHT = "contact.height"  # the floor's run-time key
-
-
-def _ns(stamp) -> int:
-    return stamp.sec * 1_000_000_000 + stamp.nanosec
 
 
 class SimulatedJointNode(Node):
@@ -114,7 +110,7 @@ class SimulatedJointNode(Node):
             self.get_logger().warning(f"motor effort rejected: {taus.reason}", throttle_duration_sec=1.0)
             return
         if self.setup.lock_step:
-            if _ns(msg.header.stamp) == self.plant.ticks * self._period_ns:
+            if nanoseconds(msg.header.stamp) == self.plant.ticks * self._period_ns:
                 self.plant.advance([0.0 if t is None else t for t in taus])
                 self._moved = True
                 self._publish()
@@ -155,7 +151,7 @@ class SimulatedJointNode(Node):
         if isinstance(values, codec.Rejection):
             self.get_logger().warning(f"external torque rejected: {values.reason}")
             return
-        stamp, now = _ns(msg.header.stamp) * 1e-9, self._state_time()
+        stamp, now = nanoseconds(msg.header.stamp) * 1e-9, self._state_time()
         start = max(stamp, now) if self.setup.lock_step else self.plant.t + max(stamp - now, 0.0)
         for j, v in enumerate(values):
             if v is not None:
@@ -188,11 +184,11 @@ class SimulatedJointNode(Node):
     def _publish(self):
         if self.setup.lock_step:
             ns = self.plant.ticks * self._period_ns
-            stamp = Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
+            stamp = time_msg(ns)
             self._clock_pub.publish(ClockMsg(clock=stamp))
         else:  # the plant's time on the node clock
             ns = self._start_ns + self.plant.ticks * self._period_ns
-            stamp = Time(sec=ns // 1_000_000_000, nanosec=ns % 1_000_000_000)
+            stamp = time_msg(ns)
         name, pos, vel, eff = codec.encode_states(self.setup.joint_names, self.plant.readings, self.plant.applied)
         msg = JointState(name=name, position=pos, velocity=vel, effort=eff)
         msg.header.stamp = stamp
