@@ -46,7 +46,6 @@ class Held:
     """One streamed reference sample (position and its derivatives), held until the next arrives."""
 
     value: Reference
-    set_points = True
 
     def sample(self, t: float) -> Reference:
         return self.value
@@ -233,7 +232,6 @@ class WaypointSpline:
     positions: tuple
     set_points = False
     smoothness = DERIVATIVES
-    _breaks: np.ndarray = field(init=False, repr=False, compare=False)
     _taylor: np.ndarray = field(init=False, repr=False, compare=False)
 
     def __post_init__(self):
@@ -255,7 +253,6 @@ class WaypointSpline:
         for d in range(DERIVATIVES + 2):
             for j in range(degree + 1 - d):
                 taylor[d, j] = position[j + d] * math.factorial(j + d) / math.factorial(j)
-        object.__setattr__(self, "_breaks", t)
         object.__setattr__(self, "_taylor", taylor)
 
     @property
@@ -266,7 +263,7 @@ class WaypointSpline:
     def _piece(self, derivative: int) -> PPoly:
         """The ``derivative``-th derivative as a scipy PPoly (power basis, highest power first)."""
         degree = self._taylor.shape[1] - 1 - derivative
-        return PPoly(self._taylor[derivative, degree::-1], self._breaks)
+        return PPoly(self._taylor[derivative, degree::-1], np.asarray(self.times, dtype=float))
 
     def extremes(self, derivative: int) -> tuple:
         """(min, max) of the position (``derivative`` 0) or one of its derivatives over all time.
@@ -275,7 +272,7 @@ class WaypointSpline:
         vanishes, found as roots of the piecewise polynomial (scipy.interpolate.PPoly.roots).
         """
         roots = self._piece(derivative + 1).roots(extrapolate=False)
-        candidates = np.concatenate([self._breaks, roots[np.isfinite(roots)]])
+        candidates = np.concatenate([self.times, roots[np.isfinite(roots)]])
         values = self._piece(derivative)(candidates)
         rest = [float(self.positions[0]), float(self.positions[-1])] if derivative == 0 else [0.0]
         return min(float(values.min()), *rest), max(float(values.max()), *rest)

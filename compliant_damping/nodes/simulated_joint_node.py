@@ -117,7 +117,7 @@ class SimulatedJointNode(Node):
             return
         now = self._state_time()
         self._latest = [old if t is None else (t, now) for t, old in zip(taus, self._latest)]
-        self._held = False
+        self._held = self._held and all(t is None for t in taus)  # the first command for a joint of ours
 
     def _on_tick(self):
         """Advance the plant to the node clock in whole periods, then publish the newest state.
