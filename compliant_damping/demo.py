@@ -125,12 +125,12 @@ def namespaced_file(params_files, ns: str, path: Path, overrides: dict | None = 
     return path
 
 
-def run_over_ros(label: str, params_file: Path, scenario: str, out: Path, timeout: float) -> Run:
-    """One lock-step run of ``scenario`` with the nodes of ``params_file`` (namespaced_file: both
-    sections, the law and the run's floor in it), as the player recorded it (source ``"ros"``)."""
+def run_over_ros(label: str, files, overrides: dict, scenario: str, out: Path, timeout: float) -> Run:
+    """One lock-step run of ``scenario`` with the nodes of ``files`` (layered) and ``overrides``
+    (namespaced_file: the law, the run's floor), as the player recorded it (source ``"ros"``)."""
     ns = f"/cdamp_demo_{os.getpid()}"  # own namespace, /clock and /diagnostics in it: other runs stay apart
     ros_args = ["--ros-args", "-r", f"__ns:={ns}", "-r", f"/clock:={ns}/clock", "-r", f"/diagnostics:={ns}/diagnostics"]
-    node_file = namespaced_file(params_file, ns, out / f"{label}.parameters.yaml")
+    node_file = namespaced_file(files, ns, out / f"{label}.parameters.yaml", overrides)
     commands = {
         "simulated_joint": module("simulated_joint_node", *ros_args, "--params-file", str(node_file),
                                   "-p", "lock_step:=true", "-r", f"motor_effort:={config.PACED_EFFORT}"),
@@ -163,9 +163,8 @@ def run_part(part: Part, out: Path, timeout: float = 60.0) -> dict:
         scenario = scenarios.streamed(scenarios.make(part.scenario, sim.joints, links=sim.links, floor=sim.contact))
         floor = {key: value for c in scenario.contacts for key, value in config.contact_parameters(c).items()}
         label = f"{part.name}_{law}"
-        params_file = namespaced_file(files, "", out / f"{label}.yaml",
-                                      {config.CONTROLLER_NODE: {"law": law}, config.SIM_NODE: floor})
-        ros = run_over_ros(label, params_file, part.scenario, out, timeout)
+        ros = run_over_ros(label, files, {config.CONTROLLER_NODE: {"law": law}, config.SIM_NODE: floor},
+                           part.scenario, out, timeout)
         reference = offline.run_scenario(ctrl, sim, scenario, is_robot(ctrl, sim))
         if ros.q.shape != reference.q.shape or not np.array_equal(ros.t_cmd, ros.t):
             raise DemoError(f"{label}: {len(ros.t)} states and {len(ros.t_cmd)} commands recorded over ROS, "
@@ -187,8 +186,8 @@ def run_part(part: Part, out: Path, timeout: float = 60.0) -> dict:
 
 
 def _plot(part: Part, results: dict, path: Path) -> Path:
-    """The runs around the impact: 0.1 s before the first joint's largest torque-rate peak to 0.3 s
-    after it (over all laws), one trace per law, per joint."""
+    """The runs around the impact: from 0.1 s before the largest one-tick torque change of any joint
+    (the earliest over the laws) to 0.3 s after the latest, one trace per law, a column per joint."""
     peaks = [r.t_cmd[1:][np.argmax(np.abs(np.diff(r.tau_m, axis=0)).max(axis=1))] for r in results.values()]
     parts_ = {law: r.window(min(peaks) - 0.1, max(peaks) + 0.3) for law, r in results.items()}
     return plots.plot_per_joint(parts_, path, title=f"{part.scenario} over ROS: link position and motor torque")
