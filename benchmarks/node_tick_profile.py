@@ -160,8 +160,10 @@ def profile(robot, args, folder: Path) -> None:
 
 
 def entities(node) -> int:
-    """Subscriptions, timers, services and clients of ``node``: what an executor pass waits on."""
-    return sum(len(list(group)) for group in (node.subscriptions, node.timers, node.services, node.clients))
+    """Subscriptions, timers, services, clients and waitables (QoS event handlers) of ``node``: what an
+    executor pass waits on."""
+    return sum(len(list(group)) for group in (node.subscriptions, node.timers, node.services, node.clients,
+                                              node.waitables))
 
 
 def where(func) -> str:

@@ -94,6 +94,7 @@ from compliant_damping.io.runtime_changes import runtime_refusal
 from compliant_damping.nodes import params, spin, startup
 from compliant_damping.nodes.diagnostics import joint_statuses
 from compliant_damping.nodes.messages import nanoseconds, time_msg
+from compliant_damping.nodes.topics import NO_PUB_EVENTS, NO_SUB_EVENTS
 
 WAITING_REPORT = 1.0     # s of steady time active without a joint state before it is reported
 SUPERVISE_PERIOD = 0.25  # s of steady time between checks of the clock, the command topic and the logs
@@ -140,18 +141,20 @@ class ControllerNode(LifecycleNode):
         self._sequence = None
         self._logged = [None] * len(s.joints)
         self._last_command = None
-        self._pub = self.create_publisher(JointState, "motor_effort", 1000)
-        self._pub_array = (self.create_publisher(Float64MultiArray, "motor_effort_array", 10)
+        self._command = JointState(name=[j.command for j in s.joints])
+        self._pub = self.create_publisher(JointState, "motor_effort", 1000, **NO_PUB_EVENTS)
+        self._pub_array = (self.create_publisher(Float64MultiArray, "motor_effort_array", 10, **NO_PUB_EVENTS)
                            if s.array_output else None)
-        self._pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10)
+        self._pub_diag = self.create_publisher(DiagnosticArray, "/diagnostics", 10, **NO_PUB_EVENTS)
         self._watchdog_period = s.watchdog_timeout
         self._watchdog_timer = self.create_timer(s.watchdog_timeout, self._on_watchdog, clock=self._watch_clock)
         self._entities = [self._watchdog_timer, self._pub, self._pub_array, self._pub_diag,
-                          self.create_subscription(JointState, "joint_states", self._on_state, NEWEST_ONLY),
+                          self.create_subscription(JointState, "joint_states", self._on_state, NEWEST_ONLY,
+                                                   **NO_SUB_EVENTS),
                           self.create_subscription(JointState, "link_reference", self._on_reference,
-                                                   QoSProfile(depth=1000)),
+                                                   QoSProfile(depth=1000), **NO_SUB_EVENTS),
                           self.create_subscription(JointTrajectory, "link_trajectory", self._on_trajectory,
-                                                   QoSProfile(depth=10)),
+                                                   QoSProfile(depth=10), **NO_SUB_EVENTS),
                           self.create_timer(0.5, self._on_diagnostics, clock=self._steady),
                           self.create_timer(SUPERVISE_PERIOD, self._on_supervise, clock=self._steady),
                           self.create_service(Trigger, "~/stop", self._on_stop),
@@ -443,7 +446,9 @@ class ControllerNode(LifecycleNode):
         return self._now() if t is None else t
 
     def _publish(self, taus, stamp):
-        msg = JointState(name=[j.command for j in self.setup.joints], effort=[float(t) for t in taus])
+        """Publish the commands ``taus`` (N m, joint order) stamped ``stamp``; one message reused (publish copies it)."""
+        msg = self._command
+        msg.effort = [float(t) for t in taus]
         msg.header.stamp = stamp
         self._pub.publish(msg)
         if self._pub_array is not None:

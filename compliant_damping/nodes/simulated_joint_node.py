@@ -56,6 +56,7 @@ from compliant_damping.io import config
 from compliant_damping.io import joint_state_codec as codec
 from compliant_damping.nodes import params, spin, startup
 from compliant_damping.nodes.messages import nanoseconds, time_msg
+from compliant_damping.nodes.topics import NO_PUB_EVENTS, NO_SUB_EVENTS
 from compliant_damping.sim.plant import Plant
 
 REPEAT_AFTER = 0.2  # s of wall time without an answering command before the state is sent again
@@ -82,13 +83,13 @@ class SimulatedJointNode(Node):
         self._period_ns = round(1e9 * self.plant.period)
         lock = self.setup.lock_step
         qos = QoSProfile(depth=1000) if lock else qos_profile_sensor_data  # deep: recorders may lag
-        self._pub = self.create_publisher(JointState, "joint_states", qos)
-        self.create_subscription(JointState, "motor_effort", self._on_command, qos)
-        self.create_subscription(JointState, "external_torque", self._on_external_torque, 10)
-        self.create_subscription(JointState, "external_impulse", self._on_external_impulse, 10)
+        self._pub = self.create_publisher(JointState, "joint_states", qos, **NO_PUB_EVENTS)
+        self.create_subscription(JointState, "motor_effort", self._on_command, qos, **NO_SUB_EVENTS)
+        self.create_subscription(JointState, "external_torque", self._on_external_torque, 10, **NO_SUB_EVENTS)
+        self.create_subscription(JointState, "external_impulse", self._on_external_impulse, 10, **NO_SUB_EVENTS)
         self.add_on_set_parameters_callback(self._on_set_parameters)
         if lock:
-            self._clock_pub = self.create_publisher(ClockMsg, "/clock", 10)
+            self._clock_pub = self.create_publisher(ClockMsg, "/clock", 10, **NO_PUB_EVENTS)
             self._moved = True
             self.create_timer(REPEAT_AFTER, self._on_repeat, clock=Clock(clock_type=ClockType.STEADY_TIME))
             self._publish()
