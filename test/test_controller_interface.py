@@ -79,3 +79,24 @@ def test_the_builder_gives_a_urdf_robot_one_robot_controller():
     assert hip.code is knee.code is FaultCode.OTHER_JOINT and hip.reason.startswith("ankle_pitch: deflection")
     assert [s.joint for s in robot.reset()] == ["ankle_pitch"]
     assert robot.last_command_time == 1e-3
+
+
+@pytest.mark.parametrize("field", range(5))
+@pytest.mark.parametrize("value", [np.nan, np.inf, -np.inf])
+def test_a_non_finite_entry_anywhere_in_a_robot_reference_puts_every_joint_in_safe_mode(field, value):
+    """Design notes, section 5: a non-finite reference never reaches the law; on a coupled robot
+    every joint goes to safe mode, the commands stay finite and within the torque limits."""
+    pytest.importorskip("pinocchio", reason="URDF robots need Pinocchio (the pin package)")
+    leg, _ = config.load(config.bundled("compliant_leg.yaml"))
+    robot = controller.build(leg)
+    q = np.array([-0.5, 1.0, -0.5])
+    rest = [JointSample(x, 0.0, x, 0.0) for x in q]
+    good = Reference(q, np.zeros(3), np.zeros(3))  # a robot's reference may leave the last derivatives scalar
+    assert robot.step(rest, good, 0.0, 1e-3).tolist() and robot.faults == [None] * 3
+    entries = [np.array(v, dtype=float) * np.ones(3) for v in good]
+    entries[field][1] = value  # the knee's entry
+    out = robot.step(rest, Reference(*entries), 1e-3, 1e-3)
+    hip, knee, ankle = robot.faults
+    assert hip.code is FaultCode.NON_FINITE_REFERENCE  # reported on the first joint: it is the robot's reference
+    assert knee.code is ankle.code is FaultCode.OTHER_JOINT
+    assert np.all(np.isfinite(out)) and np.all(np.abs(out) <= [j.limits.torque for j in leg.joints])

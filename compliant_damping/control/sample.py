@@ -46,8 +46,14 @@ class Reference(NamedTuple):
     ddddq: float = 0.0
 
     def is_finite(self) -> bool:
-        """True when the position and all four derivatives are finite (every entry, for arrays)."""
-        return all(bool(np.isfinite(v).all()) if isinstance(v, np.ndarray) else math.isfinite(v) for v in self)
+        """True when the position and all four derivatives are finite (every entry, for arrays).
+
+        Checked every control tick, so a robot's reference (arrays) is checked in one array operation.
+        """
+        values = tuple(self)
+        if any(isinstance(v, np.ndarray) for v in values):
+            return bool(np.isfinite(np.hstack(values)).all())
+        return all(math.isfinite(v) for v in values)
 
 
 def stack_references(refs) -> Reference:
