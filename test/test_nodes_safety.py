@@ -7,11 +7,15 @@ file; the watchdog bound "timeout plus two periods" is the requirement stated fo
 import math
 
 import pytest
+import rclpy
+from rclpy.event_handler import PublisherEventCallbacks, SubscriptionEventCallbacks
+from rclpy.parameter import Parameter
+from rclpy.qos import DurabilityPolicy, QoSPolicyKind, QoSProfile, ReliabilityPolicy
 from sensor_msgs.msg import JointState
 
 from compliant_damping.io import config
 from compliant_damping.control.safety import Fault, FaultCode
-from node_harness import DOC, ros, seconds, stamp  # noqa: F401 (ros is a fixture)
+from node_harness import DOC, isolation, ros, seconds, stamp  # noqa: F401 (ros is a fixture)
 from rosgraph_msgs.msg import Clock
 
 pytestmark = pytest.mark.ros
@@ -199,3 +203,26 @@ def test_malformed_or_non_finite_joint_states_never_reach_the_motor(ros):
     assert ctrl.bank[0].fault is None  # nothing non-finite ever reached the law or the filter
     t += PERIOD
     assert _tick(ros, ctrl, t) == 0.0  # good states are answered again
+
+
+def test_an_incompatible_peer_is_warned_on_its_own_side(ros):
+    """The nodes' topics carry no QoS event handlers (nodes/topics.py); a peer with an incompatible
+    QoS still hears of it through its own. Reference: the DDS request-versus-offered rules (DDS 1.4,
+    section 2.2.3): a reliable reader does not match a best-effort writer, nor a transient-local
+    reader a volatile writer; the event fires on both ends."""
+    ctrl = ros.controller()
+    assert ctrl.trigger_configure().name == "SUCCESS"
+    sim_time = Parameter("use_sim_time", value=ctrl.get_parameter("use_sim_time").value)
+    bare = rclpy.create_node("bare_node", context=ros.context, parameter_overrides=[sim_time], **isolation())
+    assert len(list(ctrl.waitables)) == len(list(bare.waitables))  # only rclpy's own: /parameter_events, /clock
+    requested, offered = [], []
+    ros.probe.node.create_subscription(JointState, "motor_effort", lambda _msg: None,
+                                       QoSProfile(depth=10, durability=DurabilityPolicy.TRANSIENT_LOCAL),
+                                       event_callbacks=SubscriptionEventCallbacks(incompatible_qos=requested.append))
+    ros.probe.node.create_publisher(JointState, "link_reference",
+                                    QoSProfile(depth=10, reliability=ReliabilityPolicy.BEST_EFFORT),
+                                    event_callbacks=PublisherEventCallbacks(incompatible_qos=offered.append))
+    assert ros.spin_until(lambda: requested and offered, 10.0), "the peer heard of no incompatible QoS"
+    assert requested[0].last_policy_kind == QoSPolicyKind.DURABILITY
+    assert offered[0].last_policy_kind == QoSPolicyKind.RELIABILITY
+    bare.destroy_node()

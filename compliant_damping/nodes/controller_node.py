@@ -446,7 +446,8 @@ class ControllerNode(LifecycleNode):
         return self._now() if t is None else t
 
     def _publish(self, taus, stamp):
-        """Publish the commands ``taus`` (N m, joint order) stamped ``stamp``; one message reused (publish copies it)."""
+        """Publish the commands ``taus`` (N m, joint order) stamped ``stamp`` (one message, reused:
+        publishing serialises it at once)."""
         msg = self._command
         msg.effort = [float(t) for t in taus]
         msg.header.stamp = stamp
