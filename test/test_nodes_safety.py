@@ -208,8 +208,8 @@ def test_malformed_or_non_finite_joint_states_never_reach_the_motor(ros):
 def test_an_incompatible_peer_is_warned_on_its_own_side(ros):
     """The nodes' topics carry no QoS event handlers (nodes/topics.py); a peer with an incompatible
     QoS still hears of it through its own. Reference: the DDS request-versus-offered rules (DDS 1.4,
-    section 2.2.3, the section number from memory): a reliable reader does not match a best-effort writer, nor a transient-local
-    reader a volatile writer; the event fires on both ends."""
+    section 2.2.3, the section number from memory): a reliable reader does not match a best-effort
+    writer, nor a transient-local reader a volatile writer; the event fires on both ends."""
     ctrl = ros.controller()
     assert ctrl.trigger_configure().name == "SUCCESS"
     sim_time = Parameter("use_sim_time", value=ctrl.get_parameter("use_sim_time").value)
