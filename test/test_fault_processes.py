@@ -182,7 +182,11 @@ def _split(rec: Record):
 
 @pytest.fixture(scope="module")
 def joint_killed(tmp_path_factory):
-    return run(tmp_path_factory.mktemp("joint_killed"), "simulated_joint", lock_step=False, after=1.5)
+    command = CTRL.joints[0].command
+    # recorded until the probe holds a zero command and a safe-mode diagnostic after the kill
+    return run(tmp_path_factory.mktemp("joint_killed"), "simulated_joint", lock_step=False, after=1.5,
+               enough=lambda rec: rec.commands[-1].efforts[command] == 0.0 and any(
+                   wall > rec.killed_at and mode == "safe" and fault for wall, mode, fault in rec.diagnostics))
 
 
 @pytest.fixture(scope="module")
