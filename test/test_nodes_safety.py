@@ -11,7 +11,9 @@ import rclpy
 from rclpy.event_handler import PublisherEventCallbacks, SubscriptionEventCallbacks
 from rclpy.parameter import Parameter
 from rclpy.qos import DurabilityPolicy, QoSPolicyKind, QoSProfile, ReliabilityPolicy
+from builtin_interfaces.msg import Duration
 from sensor_msgs.msg import JointState
+from trajectory_msgs.msg import JointTrajectory, JointTrajectoryPoint
 
 from compliant_damping.io import config
 from compliant_damping.control.safety import Fault, FaultCode
@@ -226,3 +228,20 @@ def test_an_incompatible_peer_is_warned_on_its_own_side(ros):
     assert requested[0].last_policy_kind == QoSPolicyKind.DURABILITY
     assert offered[0].last_policy_kind == QoSPolicyKind.RELIABILITY
     bare.destroy_node()
+
+
+def test_a_tightened_link_speed_limit_drops_a_queued_trajectory_beyond_it(ros):
+    """0.5 rad in 0.16 s peaks at 630/256 * 0.5 / 0.16 = 7.69 rad/s (the ninth-degree rest-to-rest
+    profile, worked out by hand): queued under the bundled 8 rad/s, dropped when the limit is
+    lowered to 7 rad/s at run time; the change itself is accepted and the drop counted."""
+    ctrl = ros.controller()
+    assert ctrl.trigger_configure().name == "SUCCESS"
+    msg = JointTrajectory(joint_names=["knee"], points=[
+        JointTrajectoryPoint(positions=[0.0], time_from_start=Duration(sec=100)),
+        JointTrajectoryPoint(positions=[0.5], time_from_start=Duration(sec=100, nanosec=160_000_000))])
+    ros.publish_when_heard(ros.probe.trajectory, msg)
+    assert ros.spin_until(lambda: len(ctrl.refs) == 1, 5.0), "trajectory not queued"
+    assert ctrl.set_parameters([Parameter("knee.limits.link_speed", value=7.0)])[0].successful
+    assert len(ctrl.refs) == 0 and ctrl.refs.rejected == 1
+    assert ctrl.refs.last_issue.reason == ("knee: a queued reference reaches 7.69 rad/s, beyond the new 7.0 rad/s "
+                                           "link speed limit; dropped")

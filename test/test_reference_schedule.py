@@ -6,6 +6,7 @@ s(1) = 1 and derivatives 1 to 4 zero at both ends; Biagiotti and Melchiorri, Tra
 for Automatic Machines and Robots, polynomial profiles), whose peak speed is s'(1/2) = 630/256 times
 the mean speed, worked out by hand; numpy's polynomial roots for its peak acceleration.
 """
+import dataclasses
 import math
 
 import numpy as np
@@ -65,6 +66,28 @@ def test_trajectory_speed_limit_is_the_exact_peak_of_the_spline():
     assert "8.203 rad/s, beyond the 8.0 rad/s link speed limit" in fast.reason
     slow = decode_trajectory(["knee"], [JOINT_LIMITS], ["knee"], [0.0, 0.16], [[0.0], [0.5]])
     assert slow == {0: WaypointSpline((0.0, 0.16), (0.0, 0.5))}
+
+
+def test_a_tightened_link_speed_limit_drops_the_queued_references_beyond_it():
+    """A queued motion of 0.5 rad in 0.16 s peaks at 630/256 * 0.5 / 0.16 = 7.69 rad/s (by hand); a
+    queued sample asks 6 rad/s. A limit of 7 rad/s drops the motion alone, 5 rad/s the sample too;
+    what is already in effect stays (the safety filter checks the measured speed)."""
+    refs = ReferenceSchedule(["knee"], [JOINT_LIMITS])
+    assert refs.add(0.0, ["knee"], [0.1], [1.0]) is None  # in effect from the first tick
+    assert refs.at(0.0) == [Reference(0.1, 1.0)]
+    assert refs.add_trajectory(["knee"], [1.0, 1.16], [[0.0], [0.5]]) is None
+    assert refs.add(2.0, ["knee"], [0.2], [6.0]) is None and refs.add(3.0, ["knee"], [0.3], [0.5]) is None
+    peak = 630.0 / 256.0 * 0.5 / 0.16
+    dropped = refs.set_limits([dataclasses.replace(JOINT_LIMITS, link_speed=7.0)])
+    assert [d.reason for d in dropped] == [f"knee: a queued reference reaches {peak:.4g} rad/s, beyond the new "
+                                           "7.0 rad/s link speed limit; dropped"]
+    assert len(refs) == 2 and refs.rejected == 1 and refs.last_issue == dropped[0]
+    assert refs.set_limits([dataclasses.replace(JOINT_LIMITS, link_speed=9.0)]) == []  # loosened: nothing
+    dropped = refs.set_limits([dataclasses.replace(JOINT_LIMITS, link_speed=5.0)])
+    assert len(dropped) == 1 and "reaches 6 rad/s" in dropped[0].reason and refs.rejected == 2
+    assert refs.at(1.1) == [Reference(0.1, 1.0)]  # the motion is gone; the sample in effect stays
+    assert refs.at(3.0) == [Reference(0.3, 0.5)] and len(refs) == 0
+    assert "+5.5 rad/s beyond the 5.0 rad/s link speed limit" in refs.add(4.0, ["knee"], [0.0], [5.5]).reason
 
 
 @pytest.mark.parametrize("args, reason", [

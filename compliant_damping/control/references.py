@@ -277,6 +277,10 @@ class WaypointSpline:
         rest = [float(self.positions[0]), float(self.positions[-1])] if derivative == 0 else [0.0]
         return min(float(values.min()), *rest), max(float(values.max()), *rest)
 
+    def peak_speed(self) -> float:
+        """Largest |q_d'| (rad/s) over all time (:meth:`extremes` of the first derivative)."""
+        return max(abs(v) for v in self.extremes(1))
+
     def sample(self, t: float) -> Reference:
         t0, t1 = self.times[0], self.times[-1]
         if t <= t0 or t >= t1:

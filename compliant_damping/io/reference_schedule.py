@@ -60,6 +60,29 @@ class ReferenceSchedule:
             self.last_issue = clipped
         return self._enqueue(times[0], motion)
 
+    def set_limits(self, limits) -> list:
+        """Check against ``limits`` from now on; returns the :class:`Rejection` of each queued message dropped.
+
+        A queued message is checked again: one that now asks a joint for more than its link speed
+        limit (a held sample's speed, a motion's exact peak speed) is dropped whole and counted as
+        refused, as it would be on arrival. The references already in effect stay: the safety
+        filter checks the measured link speed on every tick.
+        """
+        self.limits = list(limits)
+        kept, dropped = [], []
+        for queued in self._pending:
+            too_fast = next(((j, speed) for j, ref in queued[2].items()
+                             if (speed := _peak_speed(ref)) > self.limits[j].link_speed), None)
+            if too_fast is None:
+                kept.append(queued)
+                continue
+            j, speed = too_fast
+            dropped.append(self._refuse(Rejection(
+                f"{self._names[j]}: a queued reference reaches {speed:.4g} rad/s, beyond the new "
+                f"{self.limits[j].link_speed} rad/s link speed limit; dropped")))
+        self._pending = kept
+        return dropped
+
     def _refuse(self, rejection: Rejection) -> Rejection:
         self.rejected += 1
         self.last_issue = rejection
@@ -103,3 +126,8 @@ class ReferenceSchedule:
         """Forget the current and pending references (after a reset the law holds the measured position)."""
         self._pending.clear()
         self.current = [None] * len(self._names)
+
+
+def _peak_speed(ref) -> float:
+    """Largest |q_d'| (rad/s) a queued entry asks for: a held sample's speed, a motion's exact peak."""
+    return abs(ref.value.dq) if isinstance(ref, Held) else ref.peak_speed()

@@ -26,7 +26,7 @@ def decode_trajectory(joint_names, limits, names, times, positions, filled=()) -
         The configured joints, in joint order.
     limits : sequence of safety.Limits
         Their limits: the spline's speed must stay within the link speed limit over all time
-        (exact extremes, WaypointSpline.extremes). Positions beyond the position limits are
+        (exact extremes, WaypointSpline.peak_speed). Positions beyond the position limits are
         clipped at each tick by the controller, derivatives kept, as for every reference
         (controller.JointController.step); :func:`beyond_position_limits` says so beforehand.
     names : sequence of str
@@ -62,7 +62,7 @@ def decode_trajectory(joint_names, limits, names, times, positions, filled=()) -
         except ValueError as err:
             return Rejection(f"time_from_start: {err}")
         lim = limits[j]
-        speed = max(abs(v) for v in spline.extremes(1))
+        speed = spline.peak_speed()
         if speed > lim.link_speed:
             return Rejection(f"{name}: the spline through the points reaches {speed:.4g} rad/s, beyond the "
                              f"{lim.link_speed} rad/s link speed limit")

@@ -24,7 +24,8 @@ Topics (relative names):
   derivative, so the tracking laws feed its dynamics forward (trajectory_codec). It takes
   over from the first point's time; a spline faster than the link speed limit, or points that
   carry velocities, accelerations or efforts, refuse the message (counted like refused
-  samples); positions beyond the position limits are clipped at each tick and counted. Decoding
+  samples); positions beyond the position limits are clipped at each tick and counted. A link
+  speed limit tightened at run time drops the queued samples and motions beyond it (counted). Decoding
   runs in the executor, between ticks: 5.4 ms for 211 points (measured), so send a trajectory
   ahead of its first point.
 * ``motor_effort`` out (sensor_msgs/JointState: command names, effort N m; header.stamp = the
@@ -409,7 +410,8 @@ class ControllerNode(LifecycleNode):
             self.bank.set_gains(gains, self._now(), setup.gain_ramp_time)
         if limits != [j.limits for j in self.setup.joints]:
             self.bank.set_limits(limits)
-        self.refs.limits = limits
+        for dropped in self.refs.set_limits(limits):
+            self._rejected("link reference", dropped)
         self.watchdog.timeout = self.stamps.ahead_tolerance = setup.watchdog_timeout
         self.stall.timeout = stall_timeout(setup.watchdog_timeout)
         self.setup = setup
