@@ -25,8 +25,9 @@ class ReferenceSchedule:
     speed limit refuses the whole message, its position outside the position limits is clipped
     to the nearer limit; a motion beyond the link speed limit is refused whole, and one leaving the
     position limits is counted as clipped (the controllers clip every reference position at each
-    tick, derivatives kept). All are counted
-    (``rejected``, ``clipped``) with the last reason (``last_issue``).
+    tick, derivatives kept). A link speed limit lowered later drops the queued messages beyond it
+    (:meth:`set_limits`). All are counted (``rejected``, ``clipped``) with the last reason
+    (``last_issue``).
     """
 
     def __init__(self, joint_names, limits, max_pending: int = 10000):
@@ -63,12 +64,15 @@ class ReferenceSchedule:
     def set_limits(self, limits) -> list:
         """Check against ``limits`` from now on; returns the :class:`Rejection` of each queued message dropped.
 
-        A queued message is checked again: one that now asks a joint for more than its link speed
-        limit (a held sample's speed, a motion's exact peak speed) is dropped whole and counted as
-        refused, as it would be on arrival. The references already in effect stay: the safety
-        filter checks the measured link speed on every tick.
+        When a link speed limit is lowered, each queued message is checked again: one that now asks
+        a joint for more than its limit (a held sample's speed, a motion's exact peak speed) is
+        dropped whole and counted as refused, as it would be on arrival. The references already in
+        effect stay: the safety filter checks the measured link speed on every tick.
         """
+        lowered = any(new.link_speed < old.link_speed for new, old in zip(limits, self.limits))
         self.limits = list(limits)
+        if not lowered:
+            return []
         kept, dropped = [], []
         for queued in self._pending:
             too_fast = next(((j, speed) for j, ref in queued[2].items()
