@@ -25,9 +25,9 @@ Topics (relative names):
   over from the first point's time; a spline faster than the link speed limit, or points that
   carry velocities, accelerations or efforts, refuse the message (counted like refused
   samples); positions beyond the position limits are clipped at each tick and counted. A link
-  speed limit tightened at run time drops the queued samples and motions beyond it (counted). Decoding
-  runs in the executor, between ticks: 5.4 ms for 211 points (measured), so send a trajectory
-  ahead of its first point.
+  speed limit tightened at run time drops the queued samples and motions beyond it (counted).
+  Decoding runs in the executor, between ticks: 5.4 ms for 211 points (measured), so send a
+  trajectory ahead of its first point.
 * ``motor_effort`` out (sensor_msgs/JointState: command names, effort N m; header.stamp = the
   stamp of the joint state answered; reliable, keep last 1000 so a slow recorder loses nothing),
   ``motor_effort_array`` (std_msgs/Float64MultiArray in joint_names order, with array_output),
